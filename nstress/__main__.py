@@ -1,0 +1,5 @@
+"""``python -m nstress`` runs the command line."""
+
+from nstress.workflow.cli import main
+
+raise SystemExit(main())

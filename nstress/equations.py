@@ -1,0 +1,402 @@
+"""The equations of nstress, written once for the simulator and the model.
+
+Every function here is pure and works on NumPy arrays; the functions that
+the PyMC model also needs take ``xp``, an array namespace (``numpy`` or
+``pytensor.tensor``), so that the forward simulator and the model evaluate
+the *same* expressions. Nothing here reads files or knows about tables.
+
+Time is in days, δ values in ‰ (δ15N vs AIR, δ13C vs VPDB).
+"""
+
+from __future__ import annotations
+
+from types import ModuleType
+from typing import Any
+
+import numpy as np
+
+from nstress._chem_equations import *  # noqa: F401,F403  (δ, C:N, lipid, scale equations)
+
+LN2 = float(np.log(2.0))
+
+Array = Any
+
+
+# --------------------------------------------------------------------------
+# array-namespace shims (numpy vs pytensor.tensor)
+# --------------------------------------------------------------------------
+def _where(xp: ModuleType, cond: Array, a: Array, b: Array) -> Array:
+    return np.where(cond, a, b) if xp is np else xp.switch(cond, a, b)
+
+
+def _softplus(xp: ModuleType, x: Array) -> Array:
+    return np.logaddexp(0.0, x) if xp is np else xp.softplus(x)
+
+
+# --------------------------------------------------------------------------
+# turnover: the one-compartment incorporation model
+# --------------------------------------------------------------------------
+def half_life(rate_per_day: Array) -> Array:
+    """Half-life t½ = ln 2 / λ (days) of a one-compartment pool.
+
+    Tieszen et al. 1983; Martínez del Rio et al. 2009.
+    """
+    return LN2 / np.asarray(rate_per_day)
+
+
+def incorporation_curve(t_days: Array, d0: Array, d_inf: Array, rate_per_day: Array) -> Array:
+    """One-compartment incorporation after a step change of diet at t = 0.
+
+    δ(t) = δ∞ + (δ0 − δ∞)·exp(−λ t) (Tieszen et al. 1983).
+
+    Parameters
+    ----------
+    t_days
+        Time since the step (days, ≥ 0).
+    d0, d_inf
+        Tissue value before the step and at the new equilibrium (‰).
+    rate_per_day
+        Incorporation rate λ (1/d).
+
+    Returns
+    -------
+    numpy.ndarray
+        Tissue value at ``t_days`` (‰).
+    """
+    t = np.asarray(t_days, dtype=float)
+    return d_inf + (d0 - d_inf) * np.exp(-np.asarray(rate_per_day) * t)
+
+
+def blood_weights(
+    t_obs: Array, bin_lo: Array, bin_width: float, rate: Array, xp: ModuleType = np
+) -> Array:
+    """Weights of a blood sample drawn at ``t_obs`` on the bins of the pool.
+
+    A one-compartment tissue with rate λ, fed by a pool that is constant
+    within each bin, has at time t the value Σ_u w_u P_u with
+    w_u = ∫_{bin u, s ≤ t} λ e^{−λ (t − s)} ds. The history before the grid
+    (weight e^{−λ (t − t_0)}) is given to bin 0, i.e. the pool is taken as
+    constant before the grid starts. The weights sum to 1, are continuous in
+    t, and reproduce δ∞ + (δ0 − δ∞) e^{−λ t} after a step (Tieszen et al.
+    1983).
+
+    Parameters
+    ----------
+    t_obs
+        Draw time (days since the grid origin), shape ``(..., 1)`` to
+        broadcast against ``bin_lo``.
+    bin_lo
+        Left edges of the bins (days since origin), shape ``(T,)``.
+    bin_width
+        Bin width Δ (days).
+    rate
+        Incorporation rate λ (1/d), broadcastable to the output.
+    xp
+        Array namespace.
+
+    Returns
+    -------
+    array
+        Weights of shape ``broadcast(t_obs, bin_lo)``, summing to 1 over bins.
+    """
+    a = xp.clip(t_obs - bin_lo - bin_width, 0.0, np.inf)  # to the bin's right edge
+    b = xp.clip(t_obs - bin_lo, 0.0, np.inf)  # to the bin's left edge
+    w = xp.exp(-rate * a) - xp.exp(-rate * b)
+    first = (np.arange(np.shape(bin_lo)[-1]) == 0).astype(float)
+    return w + first * xp.exp(-rate * (t_obs - bin_lo[0]))
+
+
+def exponential_filter_matrix(
+    n_bins: int, bin_width: float, rate: Array, xp: ModuleType = np
+) -> Array:
+    """Lower-triangular matrix F with F[t, u] = q^(t−u) for u ≤ t, q = e^(−λΔ).
+
+    ``F @ P`` is the exponentially filtered pool S[t] = Σ_{u≤t} q^(t−u) P[u]:
+    the one-compartment recursion S[t] = q·S[t−1] + P[t] written as one matrix
+    product (no scan).
+    """
+    lag = np.subtract.outer(np.arange(n_bins), np.arange(n_bins)).astype(float)
+    lower = lag >= 0
+    return xp.exp(-rate * bin_width * np.where(lower, lag, 0.0)) * lower
+
+
+def blood_from_filtered(
+    s_prev: Array,
+    p_here: Array,
+    p_first: Array,
+    phi: Array,
+    t_obs: Array,
+    rate: Array,
+    bin_width: float,
+    has_prev: np.ndarray,
+    xp: ModuleType = np,
+) -> Array:
+    """Blood value from the filtered pool: :func:`blood_weights` in closed form.
+
+    With the draw in bin b at offset φ into it::
+
+        Y = e^(−λφ)(1 − q)·S[b − 1] + (1 − e^(−λφ))·P[b] + e^(−λt)·P[0]
+
+    where S is the filtered pool of :func:`exponential_filter_matrix`; the
+    weights are those of :func:`blood_weights` (tested to agree).
+
+    Parameters
+    ----------
+    s_prev, p_here, p_first
+        ``(..., c)`` S[b − 1], P[b] and P[0] for each observation.
+    phi, t_obs, rate
+        ``(...)`` offset into the bin, draw time (days), λ (1/d).
+    bin_width
+        Δ (days).
+    has_prev
+        ``(...)`` bool, b ≥ 1.
+    xp
+        Array namespace.
+    """
+    e_phi = xp.exp(-rate * phi)
+    one_minus_q = 1.0 - xp.exp(-rate * bin_width)
+    w_prev = e_phi * one_minus_q * has_prev
+    return (
+        w_prev[..., None] * s_prev
+        + (1.0 - e_phi)[..., None] * p_here
+        + xp.exp(-rate * t_obs)[..., None] * p_first
+    )
+
+
+def interpolate_knots(
+    t: Array, spacing: float, values: Array, n_knots: int, xp: ModuleType = np
+) -> Array:
+    """Piecewise-linear interpolation of knot values at arbitrary times.
+
+    The same interpolation as :func:`knot_basis` (knots at 0, s, 2s, ...),
+    by gathering the two neighbouring knots; held constant outside.
+
+    Parameters
+    ----------
+    t
+        ``(I, ...)`` times (days since origin).
+    spacing
+        Knot spacing s (days).
+    values
+        ``(I, K, 2)`` values at the knots.
+    n_knots
+        K.
+    xp
+        Array namespace.
+
+    Returns
+    -------
+    array
+        ``(I, ..., 2)``.
+    """
+    u = xp.clip(t / spacing, 0.0, n_knots - 1.0)
+    j = xp.clip(xp.floor(u), 0.0, n_knots - 2.0)
+    frac = u - j
+    ji = j.astype("int64")
+    ii = xp.arange(values.shape[0]).reshape((-1,) + (1,) * (t.ndim - 1))
+    lo = values[ii, ji]
+    hi = values[ii, ji + 1]
+    return lo + frac[..., None] * (hi - lo)
+
+
+def window_points(start: Array, end: Array, n_points: int) -> Array:
+    """Midpoints of ``n_points`` equal parts of ``[start, end]`` (last axis added)."""
+    f = (np.arange(n_points) + 0.5) / n_points
+    return start[..., None] + (end - start)[..., None] * f
+
+
+# --------------------------------------------------------------------------
+# catabolic enrichment of the body pool
+# --------------------------------------------------------------------------
+def enrichment(
+    t: Array, onset: Array, duration: Array, kappa: Array, tau_rec: Array, xp: ModuleType = np
+) -> Array:
+    """Catabolic δ15N enrichment E(t) of the body pool (‰), closed form.
+
+    Continuous limit of the recursion E(t) = E(t−Δ)·e^(−Δ/τ) + κ·s(t)·Δ with
+    s = 1 during the episode ``[onset, onset + duration]``::
+
+        u = max(t − onset, 0); a = min(u, duration)
+        E = κ τ · exp(−(u − a)/τ) · (1 − exp(−a/τ))
+
+    It rises at about κ ‰/d while catabolic, then relaxes with recovery
+    time τ. No overflow: both exponents are ≤ 0.
+
+    Parameters
+    ----------
+    t
+        Times (days since origin).
+    onset, duration
+        Episode start and length (days).
+    kappa
+        Enrichment rate while catabolic (‰/d), ≥ 0.
+    tau_rec
+        Recovery (relaxation) time (days), > 0.
+    xp
+        Array namespace.
+
+    Returns
+    -------
+    array
+        E(t) ≥ 0 (‰).
+    """
+    u = xp.clip(t - onset, 0.0, np.inf)
+    a = xp.minimum(u, duration)
+    return kappa * tau_rec * xp.exp(-(u - a) / tau_rec) * (1.0 - xp.exp(-a / tau_rec))
+
+
+def episode_overlap(bin_lo: Array, bin_width: float, onset: Array, duration: Array, xp=np) -> Array:
+    """Fraction of each bin that lies inside the episode ``[onset, onset+duration]``.
+
+    This is P(bin inside the episode | episode, onset, duration), used for
+    P(catabolic) per bin.
+    """
+    lo = xp.maximum(bin_lo, onset)
+    hi = xp.minimum(bin_lo + bin_width, onset + duration)
+    return xp.clip(hi - lo, 0.0, bin_width) / bin_width
+
+
+# --------------------------------------------------------------------------
+# diet path on coarse knots
+# --------------------------------------------------------------------------
+def knot_basis(t: np.ndarray, knots: np.ndarray) -> np.ndarray:
+    """Linear-interpolation (hat) basis of knots evaluated at times ``t``.
+
+    Parameters
+    ----------
+    t
+        Evaluation times, shape ``(T,)``.
+    knots
+        Increasing knot times, shape ``(K,)``.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``B`` of shape ``(T, K)`` with rows summing to 1; a path with knot
+        values ``v`` is ``B @ v``. Outside the knots it is held constant.
+    """
+    t = np.asarray(t, dtype=float)
+    k = np.asarray(knots, dtype=float)
+    B = np.zeros((t.size, k.size))
+    if k.size == 1:
+        B[:, 0] = 1.0
+        return B
+    tc = np.clip(t, k[0], k[-1])
+    j = np.clip(np.searchsorted(k, tc, side="right") - 1, 0, k.size - 2)
+    frac = (tc - k[j]) / (k[j + 1] - k[j])
+    rows = np.arange(t.size)
+    B[rows, j] = 1.0 - frac
+    B[rows, j + 1] += frac
+    return B
+
+
+def cumulative_matrix(n: int) -> np.ndarray:
+    """Lower-triangular matrix of ones: ``L @ x`` is the cumulative sum of x.
+
+    A random walk is written as this matrix product, never as a scan.
+    """
+    return np.tril(np.ones((n, n)))
+
+
+def body_pool(diet: Array, enrich: Array, gamma: Array, xp: ModuleType = np) -> Array:
+    """Body pool (δ15N, δ13C) = diet + E·(1, γ).
+
+    Parameters
+    ----------
+    diet
+        Diet signal, shape ``(..., 2)`` with isotope order (δ15N, δ13C).
+    enrich
+        Catabolic enrichment E (‰ δ15N), shape ``(...)``.
+    gamma
+        δ13C change per ‰ of catabolic δ15N (dimensionless), broadcastable.
+    xp
+        Array namespace.
+    """
+    direction = xp.stack([xp.ones_like(gamma * 1.0), gamma * 1.0], axis=-1)
+    return diet + enrich[..., None] * direction
+
+
+# --------------------------------------------------------------------------
+# nitrogen balance: the Rayleigh relation
+# --------------------------------------------------------------------------
+def rayleigh_enrichment(f_remaining: Array, epsilon: Array, d0: Array | None = None) -> Array:
+    """δ15N enrichment of the remaining pool after losing a fraction of its N.
+
+    Rayleigh distillation: (1000 + δ)/(1000 + δ0) = f^(α − 1) with
+    ε = 1000(α − 1) (‰, < 0 for light N lost). With ``d0`` the exact form is
+    used, else the approximation δ − δ0 ≈ ε·ln f (Mariotti et al. 1981).
+
+    Parameters
+    ----------
+    f_remaining
+        Fraction of body N remaining, in (0, 1].
+    epsilon
+        Fractionation of N loss ε (‰), e.g. about −3.8 ‰ (Lee et al. 2012).
+    d0
+        Initial δ15N of the pool (‰), for the exact form.
+
+    Returns
+    -------
+    numpy.ndarray
+        Enrichment δ − δ0 (‰).
+    """
+    f = np.asarray(f_remaining, dtype=float)
+    eps = np.asarray(epsilon, dtype=float)
+    if d0 is None:
+        return eps * np.log(f)
+    return (1000.0 + np.asarray(d0)) * (f ** (eps / 1000.0) - 1.0)
+
+
+def rayleigh_fraction_remaining(enrich: Array, epsilon: Array, d0: Array | None = None) -> Array:
+    """Invert :func:`rayleigh_enrichment`: fraction f of body N remaining.
+
+    Approximate form f = exp(E/ε); exact form
+    f = ((1000 + δ0 + E)/(1000 + δ0))^(1000/ε). Body-N loss is ``1 − f``.
+    Negative enrichment is treated as 0 (no loss).
+    """
+    e = np.clip(np.asarray(enrich, dtype=float), 0.0, None)
+    eps = np.asarray(epsilon, dtype=float)
+    if d0 is None:
+        return np.exp(e / eps)
+    d0 = np.asarray(d0, dtype=float)
+    return ((1000.0 + d0 + e) / (1000.0 + d0)) ** (1000.0 / eps)
+
+
+def diet_path(baseline: Array, steps: Array, walk_basis: np.ndarray, xp: ModuleType = np) -> Array:
+    """Diet signal on the bins: a level plus a random walk on coarse knots.
+
+    D(t) = b + Σ_k M[t, k]·z_k, with M = B·L the knot (hat) basis times the
+    cumulative-sum matrix, so the walk is one matrix product.
+
+    Parameters
+    ----------
+    baseline
+        ``(I, 2)`` level b at the first knot (‰).
+    steps
+        ``(I, K − 1, 2)`` increments z between consecutive knots (‰).
+    walk_basis
+        ``(T, K − 1)`` matrix M from :func:`walk_basis`.
+    xp
+        Array namespace.
+
+    Returns
+    -------
+    array
+        ``(I, T, 2)``.
+    """
+    if xp is np:
+        walk = np.einsum("tk,ikc->itc", walk_basis, steps)
+    else:
+        walk = xp.tensordot(steps, walk_basis, axes=[[1], [1]]).dimshuffle(0, 2, 1)
+    return baseline[:, None, :] + walk
+
+
+def walk_basis(t: np.ndarray, knots: np.ndarray) -> np.ndarray:
+    """Matrix M (``(T, K−1)``) with ``M @ z`` = the knot random walk at times ``t``.
+
+    M = B·L[:, 1:] with B the hat basis (:func:`knot_basis`) and L the
+    cumulative-sum matrix (:func:`cumulative_matrix`); the walk is 0 at the
+    first knot.
+    """
+    B = knot_basis(t, knots)
+    return B @ cumulative_matrix(len(knots))[:, 1:]

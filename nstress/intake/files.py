@@ -1,0 +1,302 @@
+"""Read one input file into a table of stripped strings with canonical headers.
+
+Every cell is read as text first, so that messages can show the value as
+written. Supported files:
+
+* delimited text (``.csv``, ``.tsv``, ``.txt``): UTF-8 with or without a
+  byte-order mark (UTF-16 with a mark), otherwise Latin-1 (a note says so);
+  the delimiter is sniffed among ``,`` ``;`` and tab from the header line;
+  in ``;``-separated files a decimal comma is accepted in numeric columns;
+* Parquet (``.parquet``, ``.pq``) when :mod:`pyarrow` imports;
+* Excel (``.xlsx``, ``.xlsm``) when :mod:`openpyxl` imports (first sheet).
+
+Blank lines are skipped; the header is data row 0 and the first data row is
+row 1.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime
+import hashlib
+import io
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from nstress.errors import InputError, InputErrors
+from nstress.intake.columns import RESERVED, canonical_name
+
+TEXT_SUFFIXES = (".csv", ".tsv", ".txt")
+PARQUET_SUFFIXES = (".parquet", ".pq")
+EXCEL_SUFFIXES = (".xlsx", ".xlsm")
+SUFFIXES = TEXT_SUFFIXES + PARQUET_SUFFIXES + EXCEL_SUFFIXES
+_DELIMITERS = {",": "comma", ";": "semicolon", "\t": "tab"}
+
+
+@dataclass
+class RawTable:
+    """One input file as stripped strings.
+
+    Attributes
+    ----------
+    path
+        The path as the user gave it (used in every message).
+    sha256
+        Hex digest of the file's bytes.
+    frame
+        One column per input column (canonical name, or the header as written
+        for an extra column), all values ``str``, whitespace stripped.
+    headers
+        Column name -> header as written.
+    decimal_comma
+        Whether numeric columns may use ``,`` as the decimal mark.
+    notes
+        File-level remarks (encoding fallback, renamed columns ...).
+    """
+
+    path: str
+    sha256: str
+    frame: pd.DataFrame
+    headers: dict[str, str]
+    decimal_comma: bool = False
+    notes: list[str] = field(default_factory=list)
+
+
+def read_raw(path: str | Path) -> RawTable:
+    """Read one file into a :class:`RawTable`.
+
+    Parameters
+    ----------
+    path
+        A ``.csv``/``.tsv``/``.txt``, ``.parquet``/``.pq`` or ``.xlsx``/``.xlsm`` file.
+
+    Returns
+    -------
+    RawTable
+
+    Raises
+    ------
+    InputError
+        Unknown extension, unreadable, empty or header-only file, or clashing headers.
+    """
+    name = str(path)
+    p = Path(path)
+    suffix = p.suffix.lower()
+    if suffix not in SUFFIXES:
+        raise InputError(
+            f"unknown file type {suffix or '(no extension)'!r}; expected one of "
+            + ", ".join(SUFFIXES),
+            file=name,
+        )
+    try:
+        data = p.read_bytes()
+    except OSError as exc:
+        raise InputError(f"cannot read file: {exc.strerror or exc}", file=name) from exc
+    digest = hashlib.sha256(data).hexdigest()
+    if not data.strip():
+        raise InputError("file is empty; expected a header row and data rows", file=name)
+    notes: list[str] = []
+    decimal_comma = False
+    if suffix in TEXT_SUFFIXES:
+        table, decimal_comma = _read_text(data, name, notes)
+    elif suffix in PARQUET_SUFFIXES:
+        table = _read_parquet(data, name)
+    else:
+        table = _read_excel(data, name)
+    if len(table) < 1:
+        raise InputError("file is empty; expected a header row and data rows", file=name)
+    header = [str(h).strip() for h in table.iloc[0].tolist()]
+    body = table.iloc[1:].reset_index(drop=True)
+    if len(body) == 0:
+        raise InputError("file has a header but no data rows", file=name)
+    body.columns = range(body.shape[1])
+    frame, headers = _name_columns(body, header, name, notes)
+    return RawTable(name, digest, frame, headers, decimal_comma, notes)
+
+
+def _decode(data: bytes, name: str, notes: list[str]) -> str:
+    if data.startswith(b"\xef\xbb\xbf"):
+        data = data[3:]
+    elif data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        try:
+            return data.decode("utf-16")
+        except UnicodeDecodeError as exc:
+            raise InputError("cannot decode file as UTF-16", file=name) from exc
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError:
+        notes.append(f"{name}: not valid UTF-8; read as Latin-1")
+        return data.decode("latin-1")
+
+
+def _sniff_delimiter(text: str) -> str:
+    first = next((line for line in text[:65536].splitlines() if line.strip()), "")
+    first = re.sub(r'"[^"]*"', "", first)
+    counts = {d: first.count(d) for d in _DELIMITERS}
+    best = max(counts, key=lambda d: counts[d])
+    return best if counts[best] > 0 else ","
+
+
+def _read_text(data: bytes, name: str, notes: list[str]) -> tuple[pd.DataFrame, bool]:
+    text = _decode(data, name, notes)
+    if not text.strip():
+        raise InputError("file is empty; expected a header row and data rows", file=name)
+    sep = _sniff_delimiter(text)
+    table = _read_text_arrow(text, sep)
+    if table is None:
+        table = _read_text_pandas(text, sep, name)
+    return table, sep == ";"
+
+
+def _read_text_arrow(text: str, sep: str) -> pd.DataFrame | None:
+    """Fast path (pyarrow's multi-threaded reader); ``None`` to fall back to pandas."""
+    try:
+        import pyarrow as pa
+        import pyarrow.csv as pacsv
+    except ImportError:
+        return None
+    header = next(csv.reader(io.StringIO(text), delimiter=sep), [])
+    names = [f"f{i}" for i in range(len(header))]
+    try:
+        table = pacsv.read_csv(
+            io.BytesIO(text.encode("utf-8")),
+            read_options=pacsv.ReadOptions(column_names=names),
+            parse_options=pacsv.ParseOptions(delimiter=sep, newlines_in_values=True),
+            convert_options=pacsv.ConvertOptions(
+                column_types={n: pa.string() for n in names},
+                strings_can_be_null=False,
+                quoted_strings_can_be_null=False,
+            ),
+        )
+    except (pa.ArrowInvalid, pa.ArrowTypeError):
+        return None  # ragged rows etc.: pandas gives the message with a line number
+    frame = table.to_pandas()
+    frame.columns = range(frame.shape[1])
+    return frame
+
+
+def _read_text_pandas(text: str, sep: str, name: str) -> pd.DataFrame:
+    try:
+        table = pd.read_csv(
+            io.StringIO(text),
+            sep=sep,
+            header=None,
+            dtype=str,
+            keep_default_na=False,
+            na_filter=False,
+            skip_blank_lines=True,
+            engine="c",
+        )
+    except pd.errors.EmptyDataError as exc:
+        raise InputError("file is empty; expected a header row and data rows", file=name) from exc
+    except (pd.errors.ParserError, ValueError) as exc:
+        msg = str(exc).strip().splitlines()[-1] if str(exc).strip() else type(exc).__name__
+        raise InputError(
+            f"cannot parse as {_DELIMITERS[sep]}-separated text: {msg}; "
+            "expected the same number of fields on every line",
+            file=name,
+        ) from exc
+    return table.fillna("")
+
+
+def _read_parquet(data: bytes, name: str) -> pd.DataFrame:
+    try:
+        import pyarrow  # noqa: F401
+    except ImportError as exc:
+        raise InputError(
+            "reading Parquet needs pyarrow (pip install 'nstress[io]'), or save as CSV", file=name
+        ) from exc
+    try:
+        df = pd.read_parquet(io.BytesIO(data))
+    except Exception as exc:  # pyarrow raises many types for a corrupt file
+        raise InputError(f"cannot read as Parquet: {exc}", file=name) from exc
+    if any(n is not None for n in df.index.names):
+        df = df.reset_index()
+    header = pd.DataFrame([[str(c) for c in df.columns]])
+    body = pd.DataFrame({i: _as_strings(df[c]) for i, c in enumerate(df.columns)})
+    return pd.concat([header, body], ignore_index=True)
+
+
+def _read_excel(data: bytes, name: str) -> pd.DataFrame:
+    try:
+        import openpyxl  # noqa: F401
+    except ImportError as exc:
+        raise InputError(
+            "reading Excel needs openpyxl (pip install 'nstress[io]'), or save as CSV", file=name
+        ) from exc
+    try:
+        df = pd.read_excel(
+            io.BytesIO(data), sheet_name=0, header=None, engine="openpyxl", keep_default_na=False
+        )
+    except Exception as exc:  # openpyxl/zipfile raise many types for a corrupt file
+        raise InputError(f"cannot read as an Excel workbook: {exc}", file=name) from exc
+    out = pd.DataFrame({i: _as_strings(df[c]).str.strip() for i, c in enumerate(df.columns)})
+    return out[(out != "").any(axis=1)]  # blank rows are skipped, as in text files
+
+
+def _as_strings(s: pd.Series) -> pd.Series:
+    """Turn a typed column (Parquet/Excel) into the strings a CSV would hold."""
+    s = s.reset_index(drop=True)
+    if isinstance(s.dtype, pd.DatetimeTZDtype) or pd.api.types.is_datetime64_any_dtype(s):
+        with_time = bool((s.dropna() != s.dropna().dt.normalize()).any())
+        fmt = "%Y-%m-%dT%H:%M:%S" if with_time else "%Y-%m-%d"
+        return s.dt.strftime(fmt).fillna("").astype(str)
+    if pd.api.types.is_bool_dtype(s):
+        return s.map({True: "true", False: "false"}).fillna("").astype(str)
+    if pd.api.types.is_numeric_dtype(s) or pd.api.types.is_string_dtype(s):
+        out = s.astype(object).where(s.notna(), "")
+        return out.astype(str)
+    return s.map(_cell_text).astype(str)
+
+
+def _cell_text(v: object) -> str:
+    if v is None or (isinstance(v, float) and np.isnan(v)) or v is pd.NaT:
+        return ""
+    if isinstance(v, datetime.datetime):  # also pandas.Timestamp
+        midnight = (v.hour, v.minute, v.second, v.microsecond) == (0, 0, 0, 0)
+        return v.strftime("%Y-%m-%d") if midnight and v.tzinfo is None else v.isoformat()
+    if isinstance(v, datetime.date | datetime.time):
+        return v.isoformat()
+    return str(v)
+
+
+def _name_columns(
+    body: pd.DataFrame, header: list[str], name: str, notes: list[str]
+) -> tuple[pd.DataFrame, dict[str, str]]:
+    """Strip every cell, map headers to canonical names, reject clashes."""
+    errors: list[InputError] = []
+    columns: dict[str, pd.Series] = {}
+    headers: dict[str, str] = {}
+    reserved = set(RESERVED)
+    for j, raw_name in enumerate(header):
+        values = body[j].astype(str).str.strip()
+        if raw_name == "":
+            if not (values != "").any():
+                continue  # trailing delimiter: an unnamed, empty column
+            raw_name = f"column_{j + 1}"
+        canon = canonical_name(raw_name)
+        col = canon if canon is not None else raw_name
+        if canon is None and raw_name.lower() in reserved:
+            col = f"input_{raw_name}"
+            notes.append(f"{name}: column {raw_name!r} renamed {col!r} (nstress uses that name)")
+        if col in columns:
+            what = f"both map to {col!r}" if canon else "appears twice"
+            errors.append(
+                InputError(
+                    f"header {raw_name!r} clashes with header {headers[col]!r} ({what}); "
+                    "expected each column once",
+                    file=name,
+                    row=0,
+                    column=col,
+                )
+            )
+            continue
+        columns[col] = values
+        headers[col] = raw_name
+    if errors:
+        raise errors[0] if len(errors) == 1 else InputErrors(errors)
+    return pd.DataFrame(columns, index=body.index), headers

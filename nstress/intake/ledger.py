@@ -1,0 +1,126 @@
+"""The ledger: every input row, with a status and a reason.
+
+Each input row gets one integer ``key`` (its position in the concatenated
+input, 0-based) when it is read. Every later step that drops, flags or
+combines rows says so here, so that at the end every row is accounted for
+exactly once as ``used``, ``flagged`` or ``excluded``.
+
+Status precedence: ``excluded`` > ``flagged`` > ``used``. Reasons
+accumulate (joined with ``"; "``).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+import numpy as np
+import pandas as pd
+
+USED, FLAGGED, EXCLUDED = "used", "flagged", "excluded"
+_RANK = {USED: 0, FLAGGED: 1, EXCLUDED: 2}
+LEDGER_COLUMNS = ["source_file", "source_row", "individual", "tissue", "status", "reason"]
+
+
+class Ledger:
+    """Row accounting for one or more input tables.
+
+    Parameters
+    ----------
+    frame
+        One row per input row, indexed by ``key`` (0..n-1), with at least
+        ``source_file`` and ``source_row`` (1-based data row). Other columns
+        (``individual``, ``tissue`` and any extra input columns) are carried.
+    """
+
+    def __init__(self, frame: pd.DataFrame) -> None:
+        self._frame = frame.copy()
+        n = len(self._frame)
+        self._status = np.zeros(n, dtype=np.int8)
+        self._events: list[tuple[np.ndarray, str]] = []
+
+    def __len__(self) -> int:
+        return len(self._frame)
+
+    @property
+    def keys(self) -> np.ndarray:
+        """All row keys."""
+        return self._frame.index.to_numpy()
+
+    def _mark(self, keys: Iterable[int] | int, status: str, reason: str) -> None:
+        if np.isscalar(keys):
+            keys = [int(keys)]  # type: ignore[list-item]
+        if not isinstance(keys, np.ndarray | pd.Index | pd.Series | list | tuple):
+            keys = list(keys)
+        idx = np.asarray(keys, dtype=np.int64).ravel()
+        if idx.size == 0:
+            return
+        rank = _RANK[status]
+        self._status[idx] = np.maximum(self._status[idx], rank)
+        if reason:
+            self._events.append((idx, reason))
+
+    def note(self, keys: Iterable[int] | int, reason: str) -> None:
+        """Record a reason without changing the status (e.g. a correction applied)."""
+        self._mark(keys, USED, reason)
+
+    def flag(self, keys: Iterable[int] | int, reason: str) -> None:
+        """Mark rows as used but questionable, with a reason."""
+        self._mark(keys, FLAGGED, reason)
+
+    def exclude(self, keys: Iterable[int] | int, reason: str) -> None:
+        """Mark rows as not used, with a reason."""
+        self._mark(keys, EXCLUDED, reason)
+
+    def status_of(self, keys: Iterable[int]) -> np.ndarray:
+        """Return the current status strings of ``keys``."""
+        names = np.array([USED, FLAGGED, EXCLUDED])
+        return names[self._status[np.asarray(keys, dtype=np.int64).ravel()]]
+
+    def excluded_keys(self) -> np.ndarray:
+        """Keys of rows that are excluded."""
+        return self.keys[self._status == _RANK[EXCLUDED]]
+
+    def to_frame(self) -> pd.DataFrame:
+        """Return the ledger table (contract columns first, extra columns after)."""
+        out = self._frame.copy()
+        names = np.array([USED, FLAGGED, EXCLUDED])
+        out["status"] = names[self._status]
+        out["reason"] = self._reason_strings()
+        for col in LEDGER_COLUMNS:
+            if col not in out.columns:
+                out[col] = pd.NA
+        rest = [c for c in out.columns if c not in LEDGER_COLUMNS]
+        return out[LEDGER_COLUMNS + rest]
+
+    def _reason_strings(self) -> np.ndarray:
+        """Join each row's distinct reasons in the order first given (vectorised).
+
+        Each distinct reason gets a bit; rows are grouped by their bit pattern,
+        so the string work is done once per pattern, not once per row.
+        """
+        n = len(self._frame)
+        out = np.full(n, "", dtype=object)
+        if not self._events:
+            return out
+        texts: dict[str, int] = {}
+        for _, text in self._events:
+            texts.setdefault(text, len(texts))
+        words = np.zeros((n, (len(texts) + 63) // 64), dtype=np.uint64)
+        for idx, text in self._events:
+            r = texts[text]
+            words[idx, r // 64] |= np.uint64(1) << np.uint64(r % 64)
+        patterns, inverse = np.unique(words, axis=0, return_inverse=True)
+        names = list(texts)
+        strings = []
+        for pat in patterns:
+            parts = [
+                names[r] for r in range(len(names)) if (int(pat[r // 64]) >> (r % 64)) & 1
+            ]
+            strings.append("; ".join(parts))
+        return np.asarray(strings, dtype=object)[inverse.ravel()]
+
+    def summary(self) -> pd.DataFrame:
+        """Count rows by status and reason."""
+        f = self.to_frame()
+        f["reason"] = f["reason"].replace("", "-")
+        return f.groupby(["status", "reason"]).size().rename("rows").reset_index()

@@ -1,0 +1,1 @@
+"""Model layer: the forward model, the PyMC model, fitting and diagnostics."""

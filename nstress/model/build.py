@@ -1,0 +1,253 @@
+"""Build the hierarchical PyMC model from a time base (model.md sections 1-4).
+
+One model for the whole colony, vectorised over individuals (no per-animal
+sub-models). Per individual i:
+
+* diet path D_i(t): level b_i + Gaussian random walk on coarse knots with
+  correlated (δ15N, δ13C) increments and a per-animal walk scale;
+* one catabolic episode (onset, duration, rate κ_i, recovery τ_i) whose
+  *presence* is a discrete indicator marginalised exactly: the individual's
+  likelihood is the two-component mixture
+  (1 − π_g)·p(y_i | no episode) + π_g·p(y_i | episode);
+* body pool P = D + E·(1, γ_g); tissue k sees P through its kernel
+  (one-compartment weights for blood, soft growth windows for keratin) plus
+  its discrimination Δ_k; keratin growth multiplier r_i is a parameter;
+* observation y ~ Normal(Y, sqrt(sd_row² + σ_k²)).
+
+Every pooled quantity is non-centred. Dims: ``individual``, ``bin``,
+``tissue``, ``isotope``, ``episode``, plus ``knot_step``, ``group``,
+``keratin_tissue``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pymc as pm
+import pytensor.tensor as pt
+
+from nstress import dims
+from nstress.model import forward
+from nstress.model.priors import resolve_priors
+from nstress.prep.timebase import TimeBase
+
+
+@dataclass
+class ModelSpec:
+    """Settings that change the model (and so the results).
+
+    Attributes
+    ----------
+    knot_days
+        Knot spacing of the diet random walk (days).
+    priors
+        Prior overrides (see :mod:`nstress.model.priors`).
+    reference_tissue
+        Tissue whose discrimination is fixed at its prior mean (identifies
+        the diet level); default: a keratin tissue if present, else the
+        first blood tissue.
+    """
+
+    knot_days: float = forward.DEFAULT_KNOT_DAYS
+    priors: dict[str, dict[str, Any]] = field(default_factory=dict)
+    reference_tissue: str | None = None
+
+
+@dataclass
+class BuiltModel:
+    """A PyMC model and what is needed to interpret its posterior."""
+
+    model: pm.Model
+    timebase: TimeBase
+    grid: forward.Grid
+    spec: ModelSpec
+    priors: dict[str, dict[str, Any]]
+    reference_tissue: str
+
+
+def _coords(tb: TimeBase, grid: forward.Grid) -> dict[str, Any]:
+    return {
+        dims.INDIVIDUAL: [str(x) for x in tb.individuals],
+        dims.BIN: np.arange(tb.T),
+        dims.TISSUE: list(tb.tissues),
+        dims.ISOTOPE: list(dims.ISOTOPES),
+        dims.EPISODE: [0],
+        dims.GROUP: [str(g) for g in tb.groups],
+        "knot_step": np.arange(grid.n_steps),
+        "keratin_tissue": list(tb.keratin_tissues) or ["none"],
+    }
+
+
+def _loglik(y, y_mask, sd, mu, extra_sd_obs):
+    """Per-individual Gaussian log-likelihood summed over masked entries."""
+    s2 = sd**2 + extra_sd_obs**2
+    lp = -0.5 * (pt.log(2 * np.pi * s2) + (y - mu) ** 2 / s2)
+    return pt.sum(pt.where(y_mask, lp, 0.0), axis=(1, 2))
+
+
+def data_centre(tb: TimeBase) -> np.ndarray:
+    """Mean (δ15N, δ13C) of the observations minus their tissues' prior discrimination."""
+    disc = np.array([[tb.tissue_defs[t].disc_d15N, tb.tissue_defs[t].disc_d13C] for t in tb.tissues])
+    vals = []
+    for o in (tb.blood, tb.keratin):
+        if o.mask.any():
+            v = np.where(o.y_mask, o.y - disc[o.tissue], np.nan)
+            vals.append(v.reshape(-1, 2))
+    allv = np.concatenate(vals)
+    c = np.nanmean(np.where(np.isfinite(allv), allv, np.nan), axis=0)
+    return np.where(np.isnan(c), 0.0, c)
+
+
+def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
+    """Build the colony model.
+
+    Parameters
+    ----------
+    tb
+        Time base of the prepared samples.
+    spec
+        Model settings; defaults if ``None``.
+
+    Returns
+    -------
+    BuiltModel
+    """
+    spec = spec or ModelSpec()
+    pr = resolve_priors(spec.priors)
+    grid = forward.make_grid(tb, spec.knot_days)
+    I, G = tb.n_individuals, len(tb.groups)  # noqa: E741
+    gi = tb.group_index
+    n_tis = len(tb.tissues)
+    tdefs = [tb.tissue_defs[t] for t in tb.tissues]
+    ref = spec.reference_tissue or (tb.keratin_tissues[0] if tb.keratin_tissues else tb.tissues[0])
+    ref_idx = tb.tissues.index(ref)
+    centre = data_centre(tb)
+
+    # group time references, for onset pooling (days since the group's earliest origin)
+    t_events = []
+    for o in (tb.blood, tb.keratin):
+        t_abs = np.where(o.mask, o.t + tb.origin_offset[:, None], np.nan)
+        t_events.append(t_abs)
+    t_all = np.concatenate(t_events, axis=1)
+    span_lo = np.nanmin(np.where(np.isfinite(t_all), t_all, np.inf), axis=1) - 0.0
+    # a keratin record reaches back in time: use the grid start instead for keratin
+    ind_lo = np.minimum(span_lo, tb.origin_offset + 0.0)
+    ind_hi = np.nanmax(np.where(np.isfinite(t_all), t_all, -np.inf), axis=1)
+    g_lo = np.array([ind_lo[gi == g].min() for g in range(G)])
+    g_hi = np.array([ind_hi[gi == g].max() for g in range(G)])
+    g_mid = 0.5 * (g_lo + g_hi)
+    g_half = np.maximum(0.5 * (g_hi - g_lo), 10.0)
+
+    step_mask = np.zeros((I, grid.n_steps))
+    end_days = tb.n_bins * tb.bin_width
+    step_mask[:] = (grid.knots[1:][None, :] <= end_days[:, None] + spec.knot_days).astype(float)
+
+    with pm.Model(coords=_coords(tb, grid)) as model:
+        # ---- episode presence (marginalised) ---------------------------
+        p = pr["p_episode"]
+        pi = pm.Beta("p_episode_group", alpha=p["alpha"], beta=p["beta"], dims=dims.GROUP)
+
+        # ---- diet level and walk -------------------------------------------
+        mu_b = pm.Normal(
+            "diet_level_group",
+            mu=centre,
+            sigma=pr["baseline_mean_sd"]["sigma"],
+            shape=(G, 2),
+            dims=(dims.GROUP, dims.ISOTOPE),
+        )
+        sd_b = pm.HalfNormal("diet_level_sd", sigma=pr["baseline_sd"]["sigma"], dims=dims.ISOTOPE)
+        z_b = pm.Normal("z_diet_level", 0.0, 1.0, dims=(dims.INDIVIDUAL, dims.ISOTOPE))
+        baseline = pm.Deterministic(
+            "diet_level", mu_b[gi] + sd_b * z_b, dims=(dims.INDIVIDUAL, dims.ISOTOPE)
+        )
+        w_sd = pm.HalfNormal("walk_sd", sigma=pr["walk_sd"]["sigma"], dims=dims.ISOTOPE)
+        w_corr_raw = pm.Normal("walk_corr_z", pr["walk_corr"]["mu"], pr["walk_corr"]["sigma"])
+        rho = pm.Deterministic("walk_corr", pt.tanh(w_corr_raw))
+        z_ws = pm.Normal("z_walk_scale", 0.0, 1.0, dims=dims.INDIVIDUAL)
+        w_scale = pt.exp(pr["walk_scale_log_sd"]["value"] * z_ws)
+        z_w = pm.Normal("z_walk", 0.0, 1.0, dims=(dims.INDIVIDUAL, "knot_step", dims.ISOTOPE))
+        step_n = z_w[..., 0]
+        step_c = rho * z_w[..., 0] + pt.sqrt(1.0 - rho**2) * z_w[..., 1]
+        scale = (w_scale[:, None] * step_mask)[..., None] * w_sd
+        steps = pm.Deterministic(
+            "diet_steps",
+            pt.stack([step_n, step_c], axis=-1) * scale,
+            dims=(dims.INDIVIDUAL, "knot_step", dims.ISOTOPE),
+        )
+
+        # ---- episode timing and size (non-centred) ---------------------------
+        mu_on = pm.Normal("onset_group", mu=g_mid, sigma=g_half, dims=dims.GROUP)
+        sd_on = pm.HalfNormal("onset_sd", sigma=pr["onset_sd"]["sigma"])
+        z_on = pm.Normal("z_onset", 0.0, 1.0, dims=dims.INDIVIDUAL)
+        onset = pm.Deterministic(
+            "onset", mu_on[gi] - tb.origin_offset + sd_on * z_on, dims=dims.INDIVIDUAL
+        )
+
+        def _lognormal_group(name: str, key: str) -> Any:
+            m = pm.Normal(f"{name}_log_mean", pr[f"{key}_log_mean"]["mu"],
+                          pr[f"{key}_log_mean"]["sigma"], dims=dims.GROUP)
+            s = pm.HalfNormal(f"{name}_log_sd", sigma=pr[f"{key}_log_sd"]["sigma"])
+            z = pm.Normal(f"z_{name}", 0.0, 1.0, dims=dims.INDIVIDUAL)
+            return pm.Deterministic(name, pt.exp(m[gi] + s * z), dims=dims.INDIVIDUAL)
+
+        duration = _lognormal_group("duration", "duration")
+        kappa = _lognormal_group("kappa", "kappa")
+        tau_rec = _lognormal_group("tau_rec", "tau_rec")
+        gamma_g = pm.Normal("gamma", pr["gamma"]["mu"], pr["gamma"]["sigma"], dims=dims.GROUP)
+        gamma = gamma_g[gi]
+
+        # ---- tissues ----------------------------------------------------
+        disc_mu = np.array([[t.disc_d15N, t.disc_d13C] for t in tdefs])
+        disc_sd = np.array([t.disc_sd for t in tdefs])
+        free = np.ones(n_tis, bool)
+        free[ref_idx] = False
+        z_disc = pm.Normal("z_disc", 0.0, 1.0, shape=(n_tis, 2), dims=(dims.TISSUE, dims.ISOTOPE))
+        disc = pm.Deterministic(
+            "discrimination",
+            disc_mu + (free * disc_sd)[:, None] * z_disc,
+            dims=(dims.TISSUE, dims.ISOTOPE),
+        )
+        is_blood = np.array([not t.is_keratin for t in tdefs])
+        hl_mu = np.array([np.log(t.half_life_days) if b else 0.0 for t, b in zip(tdefs, is_blood)])
+        hl_sd = np.array([t.half_life_sd_log if b else 0.0 for t, b in zip(tdefs, is_blood)])
+        z_hl = pm.Normal("z_half_life", 0.0, 1.0, dims=dims.TISSUE)
+        half_life = pm.Deterministic("half_life", pt.exp(hl_mu + hl_sd * z_hl), dims=dims.TISSUE)
+        rate = np.log(2.0) / half_life
+
+        n_k = max(len(tb.keratin_tissues), 1)
+        g_mean = pm.Normal(
+            "growth_log_mean", 0.0, pr["growth_log_mean_sd"]["value"], shape=(G, n_k),
+            dims=(dims.GROUP, "keratin_tissue"),
+        )
+        z_g = pm.Normal("z_growth", 0.0, 1.0, dims=(dims.INDIVIDUAL, "keratin_tissue"))
+        gsd = np.nan_to_num(tb.growth_sd_log, nan=0.1)
+        growth = pm.Deterministic(
+            "growth", pt.exp(g_mean[gi] + gsd * z_g), dims=(dims.INDIVIDUAL, "keratin_tissue")
+        )
+        extra_sd = pm.HalfNormal(
+            "extra_sd", sigma=pr["extra_sd"]["sigma"], dims=(dims.TISSUE, dims.ISOTOPE)
+        )
+
+        # ---- likelihood --------------------------------------------------
+        params = forward.Params(
+            baseline=baseline, steps=steps, onset=onset, duration=duration, kappa=kappa,
+            tau_rec=tau_rec, gamma=gamma, disc=disc, rate=rate, growth=growth,
+        )
+        pred = forward.predict(tb, grid, params, xp=pt)
+        ll0 = 0.0
+        ll1 = 0.0
+        for o, y0, ye in ((tb.blood, pred.blood0, pred.blood_e), (tb.keratin, pred.keratin0, pred.keratin_e)):
+            if not o.mask.any():
+                continue
+            mask = o.y_mask & o.mask[..., None]
+            esd = extra_sd[o.tissue]
+            y1 = forward.with_episode(y0, ye, gamma, xp=pt)
+            ll0 = ll0 + _loglik(o.y, mask, o.sd, y0, esd)
+            ll1 = ll1 + _loglik(o.y, mask, o.sd, y1, esd)
+        lp0 = pt.log1p(-pi[gi]) + ll0
+        lp1 = pt.log(pi[gi]) + ll1
+        pm.Potential("mixture", pt.sum(pt.logaddexp(lp0, lp1)))
+        pm.Deterministic("p_episode_cond", pt.sigmoid(lp1 - lp0), dims=dims.INDIVIDUAL)
+    return BuiltModel(model=model, timebase=tb, grid=grid, spec=spec, priors=pr, reference_tissue=ref)

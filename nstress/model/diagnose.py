@@ -1,0 +1,190 @@
+"""Diagnostics of a fit: convergence on identified quantities, and predictive checks.
+
+Convergence (R-hat, bulk/tail ESS) is judged on quantities the data
+identify (model.md section 5): the diet path, P(episode) per animal, the
+presence-weighted enrichment per bin, group hyperparameters, discrimination
+and turnover. An animal without an episode has an unconstrained onset whose
+R-hat means nothing; onset is therefore not among them. The report says
+which quantities the check covered.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+
+from nstress.model import posterior as post
+from nstress.model.build import BuiltModel
+from nstress.model.draws import Draws, latent_paths, predictions
+
+HYPER = (
+    "p_episode_group", "diet_level_group", "diet_level_sd", "walk_sd", "walk_corr",
+    "onset_group", "onset_sd", "duration_log_mean", "kappa_log_mean", "tau_rec_log_mean",
+    "gamma", "growth_log_mean",
+)
+
+
+@dataclass
+class Thresholds:
+    """Pass marks of a fit (configurable)."""
+
+    rhat_max: float = 1.01
+    ess_bulk_min: float = 400.0
+    ess_tail_min: float = 400.0
+    divergences_max: int = 0
+    ppc_coverage_min: float = 0.75  # share of observations inside their 90 % predictive interval
+
+
+@dataclass
+class Diagnostics:
+    """Diagnostics of one fit; ``ok`` travels to every product."""
+
+    ok: bool
+    reasons: list[str]
+    convergence: dict[str, dict[str, float]]
+    sampler: dict[str, float]
+    ppc: dict[str, dict[str, float]]
+    individual_ok: np.ndarray
+    individual_rhat: np.ndarray
+    covered: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain data for manifests and files."""
+        d = asdict(self)
+        d["individual_ok"] = [bool(x) for x in self.individual_ok]
+        d["individual_rhat"] = [float(x) for x in self.individual_rhat]
+        return d
+
+
+def _identified(built: BuiltModel, d: Draws, paths: dict[str, np.ndarray], idata: Any) -> dict:
+    tb = built.timebase
+    mask = tb.bin_mask
+    # diet path and presence-weighted enrichment at every 2nd real bin
+    sel = mask & (np.arange(tb.T)[None, :] % 2 == 0)
+    ii, tt = np.nonzero(sel)
+    diet = paths["diet"][:, ii, tt, :]
+    weighted = d.p_cond[:, ii] * paths["enrich"][:, ii, tt]
+    arrays = {
+        "diet_path": d.by_chain(diet),
+        "p_episode": d.by_chain(np.clip(d.p_cond, 1e-4, 1 - 1e-4)),
+        "enrichment_weighted": d.by_chain(np.round(weighted, 6)),
+        "discrimination": d.by_chain(d.params["discrimination"]),
+        "half_life": d.by_chain(d.params["half_life"]),
+    }
+    n_chain, per = d.chain_draw
+    for name in HYPER:
+        if post.has_var(idata, name):
+            a = post.var(idata, name)
+            step = max(1, a.shape[1] // per)
+            arrays[name] = a[:, ::step][:, :per]
+    return arrays
+
+
+def _ppc(built: BuiltModel, d: Draws, seed: int, n_rep: int = 200) -> dict[str, dict[str, float]]:
+    """Coverage of 90 % posterior predictive intervals, and standardised residuals, per tissue."""
+    tb = built.timebase
+    rng = np.random.default_rng(seed)
+    idx = np.linspace(0, d.n - 1, min(n_rep, d.n)).astype(int)
+    reps = {"blood": [], "keratin": []}
+    for s in idx:
+        pr = predictions(built, d, s)
+        g = d.gamma_ind[s]
+        z = d.episode[s]
+        esd = d.params["extra_sd"][s]
+        for name, o, y0, ye in (
+            ("blood", tb.blood, pr.blood0, pr.blood_e),
+            ("keratin", tb.keratin, pr.keratin0, pr.keratin_e),
+        ):
+            e = (z[:, None] * ye)[..., None] * np.stack([np.ones_like(g), g], -1)[:, None, :]
+            mu = y0 + e
+            sd = np.sqrt(o.sd**2 + esd[o.tissue] ** 2)
+            reps[name].append(mu + sd * rng.standard_normal(mu.shape))
+    out: dict[str, dict[str, float]] = {}
+    for name, o in (("blood", tb.blood), ("keratin", tb.keratin)):
+        if not o.mask.any():
+            continue
+        r = np.stack(reps[name])  # (R, I, N, 2)
+        lo, hi = np.quantile(r, [0.05, 0.95], axis=0)
+        mean, sdv = r.mean(0), r.std(0) + 1e-9
+        m = o.y_mask & o.mask[..., None]
+        inside = (o.y >= lo) & (o.y <= hi)
+        zres = (o.y - mean) / sdv
+        for k, tname in enumerate(tb.tissues):
+            for c, iso in enumerate(("d15N", "d13C")):
+                sel = m[..., c] & (o.tissue == k)
+                if sel.sum() == 0:
+                    continue
+                out[f"{tname}:{iso}"] = {
+                    "n": int(sel.sum()),
+                    "coverage90": float(inside[..., c][sel].mean()),
+                    "mean_z": float(zres[..., c][sel].mean()),
+                    "sd_z": float(zres[..., c][sel].std()),
+                }
+    return out
+
+
+def diagnose(
+    built: BuiltModel, idata: Any, d: Draws, thresholds: Thresholds | None = None, seed: int = 0
+) -> Diagnostics:
+    """Judge a fit on identified quantities, sampler statistics and predictive checks.
+
+    Parameters
+    ----------
+    built
+        Built model.
+    idata
+        Posterior.
+    d
+        Collected draws (:func:`nstress.model.draws.collect`).
+    thresholds
+        Pass marks.
+    seed
+        Seed of the predictive replicates.
+
+    Returns
+    -------
+    Diagnostics
+    """
+    th = thresholds or Thresholds()
+    paths = latent_paths(built, d)
+    arrays = _identified(built, d, paths, idata)
+    conv = post.summarise_arrays(arrays)
+    n_chain, n_draw = post.n_chains_draws(idata)
+    # ESS of the thinned arrays understates the full chains' ESS by the thinning factor
+    thin = n_draw / d.chain_draw[1]
+    for v in conv.values():
+        v["ess_bulk_min"] *= thin if thin > 1 else 1.0
+        v["ess_tail_min"] *= thin if thin > 1 else 1.0
+    ss = post.sampler_stats(idata)
+    ppc = _ppc(built, d, seed)
+    reasons = []
+    for name, v in conv.items():
+        if v["rhat_max"] > th.rhat_max:
+            reasons.append(f"R-hat of {name} is {v['rhat_max']:.3f} (> {th.rhat_max})")
+        if v["ess_bulk_min"] < th.ess_bulk_min:
+            reasons.append(f"bulk ESS of {name} is {v['ess_bulk_min']:.0f} (< {th.ess_bulk_min:.0f})")
+        if v["ess_tail_min"] < th.ess_tail_min:
+            reasons.append(f"tail ESS of {name} is {v['ess_tail_min']:.0f} (< {th.ess_tail_min:.0f})")
+    if ss.get("divergences", 0) > th.divergences_max:
+        reasons.append(f"{ss['divergences']} divergent transitions")
+    for key, v in ppc.items():
+        if v["coverage90"] < th.ppc_coverage_min:
+            reasons.append(
+                f"posterior predictive check of {key}: {v['coverage90']:.0%} of observations "
+                f"inside their 90 % interval (< {th.ppc_coverage_min:.0%})"
+            )
+    # per individual: R-hat of its P(episode) and weighted enrichment
+    ind_rhat = post.rhat_per_column(d.by_chain(np.clip(d.p_cond, 1e-4, 1 - 1e-4)))
+    ind_ok = ind_rhat <= max(th.rhat_max, 1.05)
+    return Diagnostics(
+        ok=not reasons,
+        reasons=reasons,
+        convergence=conv,
+        sampler=ss,
+        ppc=ppc,
+        individual_ok=ind_ok,
+        individual_rhat=ind_rhat,
+        covered=sorted(conv),
+    )

@@ -1,0 +1,109 @@
+"""Posterior draws turned back into latent paths with the forward model (NumPy).
+
+The same :func:`nstress.model.forward.predict` that defines the likelihood
+maps each retained draw to its diet path, enrichment and expected tissue
+values, so products and posterior predictive checks use the model's own
+equations.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from nstress import equations as eq
+from nstress.model import forward
+from nstress.model import posterior as post
+from nstress.model.build import BuiltModel
+
+PARAM_NAMES = (
+    "diet_level", "diet_steps", "onset", "duration", "kappa", "tau_rec", "gamma",
+    "discrimination", "half_life", "growth", "p_episode_cond", "extra_sd",
+)
+
+
+@dataclass
+class Draws:
+    """Retained posterior draws, flattened to a leading ``sample`` axis.
+
+    ``chain_draw`` keeps ``(n_chains, n_per_chain)`` so that arrays can be
+    reshaped back for R-hat. ``episode`` is a sampled indicator per draw and
+    individual (seeded), drawn from ``p_cond``.
+    """
+
+    params: dict[str, np.ndarray]
+    chain_draw: tuple[int, int]
+    p_cond: np.ndarray  # (S, I)
+    episode: np.ndarray  # (S, I) bool
+    gamma_ind: np.ndarray  # (S, I)
+
+    @property
+    def n(self) -> int:
+        """Number of draws S."""
+        return self.p_cond.shape[0]
+
+    def by_chain(self, a: np.ndarray) -> np.ndarray:
+        """Reshape ``(S, ...)`` to ``(chain, draw, ...)``."""
+        return a.reshape(self.chain_draw + a.shape[1:])
+
+
+def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0) -> Draws:
+    """Flatten (and thin) the posterior draws needed for products.
+
+    Parameters
+    ----------
+    built
+        The built model (for the time base and group index).
+    idata
+        Posterior.
+    max_draws
+        At most this many draws in total (thinned evenly per chain).
+    seed
+        Seed of the episode-indicator draws.
+    """
+    n_chain, n_draw = post.n_chains_draws(idata)
+    per_chain = max(1, max_draws // n_chain)
+    arrays = post.subset_draws(idata, list(PARAM_NAMES), max_draws=per_chain)
+    cd = arrays["onset"].shape[:2]
+    flat = {k: v.reshape((-1,) + v.shape[2:]) for k, v in arrays.items()}
+    gi = built.timebase.group_index
+    p_cond = np.clip(flat["p_episode_cond"], 0.0, 1.0)
+    rng = np.random.default_rng(seed)
+    episode = rng.random(p_cond.shape) < p_cond
+    return Draws(
+        params=flat, chain_draw=cd, p_cond=p_cond, episode=episode, gamma_ind=flat["gamma"][:, gi]
+    )
+
+
+def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:
+    """Diet path and enrichment on the bins for every draw.
+
+    Returns
+    -------
+    dict
+        ``diet`` ``(S, I, T, 2)``, ``enrich`` ``(S, I, T)`` (given an
+        episode), ``inside`` ``(S, I, T)`` share of each bin inside the
+        episode (given an episode).
+    """
+    tb, grid = built.timebase, built.grid
+    p = d.params
+    diet = p["diet_level"][:, :, None, :] + np.einsum("tk,sikc->sitc", grid.walk, p["diet_steps"])
+    t = tb.bin_mid[None, None, :]
+    on, du = p["onset"][..., None], p["duration"][..., None]
+    enrich = eq.enrichment(t, on, du, p["kappa"][..., None], p["tau_rec"][..., None])
+    inside = eq.episode_overlap(tb.bin_lo[None, None, :], tb.bin_width, on, du)
+    return {"diet": diet, "enrich": enrich, "inside": inside}
+
+
+def predictions(built: BuiltModel, d: Draws, idx: np.ndarray) -> forward.Prediction:
+    """Expected tissue values for draw ``idx`` (one draw), via :func:`forward.predict`."""
+    p = d.params
+    params = forward.Params(
+        baseline=p["diet_level"][idx], steps=p["diet_steps"][idx], onset=p["onset"][idx],
+        duration=p["duration"][idx], kappa=p["kappa"][idx], tau_rec=p["tau_rec"][idx],
+        gamma=d.gamma_ind[idx], disc=p["discrimination"][idx],
+        rate=np.log(2.0) / p["half_life"][idx], growth=p["growth"][idx],
+    )
+    return forward.predict(built.timebase, built.grid, params, xp=np)

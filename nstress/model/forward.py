@@ -1,0 +1,254 @@
+"""The generative model's deterministic part, for the simulator and the PyMC model.
+
+:func:`predict` maps parameters to expected tissue values. The forward
+simulator calls it with NumPy arrays (true values); the PyMC model calls it
+with PyTensor tensors. Both therefore use exactly the same equations
+(:mod:`nstress.equations` and
+:func:`predict`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from types import ModuleType
+from typing import Any
+
+import numpy as np
+
+from nstress import equations as eq
+from nstress.prep.timebase import TimeBase
+
+DEFAULT_KNOT_DAYS = 16.0
+DEFAULT_KERATIN_POINTS = 6
+
+
+@dataclass
+class Grid:
+    """Constant arrays of one time base: knots, walk basis, blood lags.
+
+    Attributes
+    ----------
+    knots
+        Knot times of the diet walk (days since origin), equally spaced.
+    walk
+        ``(T, K − 1)`` walk basis (:func:`nstress.equations.walk_basis`).
+    blood_bin
+        ``(I, Nb)`` bin b of each draw.
+    blood_phi
+        ``(I, Nb)`` offset of each draw into its bin (days).
+    blood_individuals
+        Indices of the individuals with at least one blood draw.
+    blood_tissues
+        Tissue indices of the blood tissues present.
+    blood_tissue_slot
+        ``(I, Nb)`` position of each draw's tissue in ``blood_tissues``.
+    keratin_points
+        Quadrature points per keratin growth window.
+    """
+
+    knots: np.ndarray
+    walk: np.ndarray
+    blood_bin: np.ndarray
+    blood_phi: np.ndarray
+    blood_individuals: np.ndarray
+    blood_tissues: list[int]
+    blood_tissue_slot: np.ndarray
+    keratin_points: int = DEFAULT_KERATIN_POINTS
+
+    @property
+    def n_steps(self) -> int:
+        """Number of walk increments per individual and isotope (K − 1)."""
+        return self.walk.shape[1]
+
+    @property
+    def spacing(self) -> float:
+        """Knot spacing (days)."""
+        return float(self.knots[1] - self.knots[0])
+
+
+def make_grid(
+    tb: TimeBase,
+    knot_days: float = DEFAULT_KNOT_DAYS,
+    keratin_points: int = DEFAULT_KERATIN_POINTS,
+) -> Grid:
+    """Knots every ``knot_days`` across the padded grid, the walk basis and blood lags.
+
+    Parameters
+    ----------
+    tb
+        Time base.
+    knot_days
+        Knot spacing of the diet random walk (days).
+    keratin_points
+        Quadrature points per keratin growth window.
+    """
+    span = tb.T * tb.bin_width
+    n_knots = max(int(np.ceil(span / knot_days)) + 1, 2)
+    knots = np.arange(n_knots) * float(knot_days)
+    b_bin = np.clip(np.floor(tb.blood.t / tb.bin_width), 0, tb.T - 1).astype(np.int64)
+    blood_tissues = [j for j, c in enumerate(tb.tissue_class) if c == "blood"]
+    slot = np.zeros(tb.tissue_class.__len__(), dtype=np.int64)
+    slot[blood_tissues] = np.arange(len(blood_tissues))
+    return Grid(
+        knots=knots,
+        walk=eq.walk_basis(tb.bin_mid, knots),
+        blood_bin=b_bin,
+        blood_phi=tb.blood.t - b_bin * tb.bin_width,
+        blood_individuals=np.flatnonzero(tb.blood.mask.any(axis=1)),
+        blood_tissues=blood_tissues,
+        blood_tissue_slot=slot[tb.blood.tissue],
+        keratin_points=int(keratin_points),
+    )
+
+
+@dataclass
+class Params:
+    """Parameters of the generative model (NumPy arrays or tensors).
+
+    Attributes
+    ----------
+    baseline
+        ``(I, 2)`` diet level at the first knot, body-pool scale (‰).
+    steps
+        ``(I, K−1, 2)`` diet random-walk increments (‰).
+    onset, duration
+        ``(I,)`` episode start (days since the individual's origin) and length (days).
+    kappa
+        ``(I,)`` enrichment rate while catabolic (‰ δ15N / d).
+    tau_rec
+        ``(I,)`` recovery time (days).
+    gamma
+        ``(I,)`` δ13C change per ‰ catabolic δ15N.
+    disc
+        ``(n_tissues, 2)`` discrimination Δ (‰).
+    rate
+        ``(n_tissues,)`` incorporation rate λ (1/d; keratin entries unused).
+    growth
+        ``(I, K_keratin)`` growth multipliers r.
+    """
+
+    baseline: Any
+    steps: Any
+    onset: Any
+    duration: Any
+    kappa: Any
+    tau_rec: Any
+    gamma: Any
+    disc: Any
+    rate: Any
+    growth: Any
+
+
+@dataclass
+class Prediction:
+    """Expected tissue values.
+
+    ``blood0``/``keratin0`` are ``(I, N, 2)`` without an episode;
+    ``blood_e``/``keratin_e`` are ``(I, N)``, the episode's δ15N
+    contribution (the δ13C contribution is γ times it).
+    ``diet`` ``(I, T, 2)`` and ``enrich`` ``(I, T)`` are the latent paths.
+    """
+
+    diet: Any
+    enrich: Any
+    blood0: Any
+    blood_e: Any
+    keratin0: Any
+    keratin_e: Any
+
+
+def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Prediction:
+    """Expected values of every observation given the parameters.
+
+    * Diet D(t): level + knot random walk, piecewise linear in time.
+    * Enrichment E(t): closed form (:func:`nstress.equations.enrichment`).
+    * Blood: one-compartment weights on the bins
+      (:func:`nstress.equations.blood_weights_lagged`) applied to D and E.
+    * Keratin: D and E averaged over the segment's growth window
+      [t_c − h_hi/r, t_c − h_lo/r] by the midpoint rule.
+
+    Parameters
+    ----------
+    tb
+        Time base.
+    grid
+        Constant arrays from :func:`make_grid`.
+    p
+        Parameters.
+    xp
+        ``numpy`` or ``pytensor.tensor``.
+
+    Returns
+    -------
+    Prediction
+    """
+    n_ind = tb.n_individuals
+    diet = eq.diet_path(p.baseline, p.steps, grid.walk, xp=xp)
+    t = tb.bin_mid[None, :]
+    onset, duration = p.onset[:, None], p.duration[:, None]
+    kappa, tau = p.kappa[:, None], p.tau_rec[:, None]
+    enrich = eq.enrichment(t, onset, duration, kappa, tau, xp=xp)
+
+    # blood: one-compartment filter of the pool on the bins, for animals with blood
+    b = tb.blood
+    pool = xp.concatenate([diet, enrich[..., None]], axis=-1)  # (I, T, 3)
+    blood_vals = []
+    with_blood = grid.blood_individuals
+    if with_blood.size:
+        pool_b = pool[with_blood]  # (Ib, T, 3)
+        filtered = []
+        for k in grid.blood_tissues:
+            F = eq.exponential_filter_matrix(tb.T, tb.bin_width, p.rate[k], xp=xp)
+            filtered.append(xp.tensordot(pool_b, F, axes=[[1], [1]]))  # (Ib, 3, T)
+        S = xp.stack(filtered)  # (Kb, Ib, 3, T)
+        kb = grid.blood_tissue_slot[with_blood]  # (Ib, Nb)
+        ib = np.arange(with_blood.size)[:, None]
+        bin_b = grid.blood_bin[with_blood]
+        s_prev = S[kb, ib, :, np.maximum(bin_b - 1, 0)]  # (Ib, Nb, 3)
+        p_here = pool_b[ib, bin_b]
+        p_first = pool_b[:, :1, :]
+        rate_obs = p.rate[b.tissue[with_blood]]
+        vals = eq.blood_from_filtered(
+            s_prev, p_here, p_first, grid.blood_phi[with_blood], b.t[with_blood], rate_obs,
+            tb.bin_width, (bin_b >= 1).astype(float), xp=xp,
+        )  # (Ib, Nb, 3)
+        full = xp.zeros((n_ind, b.n, 3))
+        if xp is np:
+            full = _np_set(full, with_blood, vals)
+        else:
+            full = xp.set_subtensor(full[with_blood], vals)
+        blood_vals = full
+    else:
+        blood_vals = xp.zeros((n_ind, b.n, 3))
+
+    # keratin: average of the pool over each growth window
+    k = tb.keratin
+    r = p.growth[np.arange(n_ind)[:, None], k.slot]
+    tq = eq.window_points(k.t - k.h_hi / r, k.t - k.h_lo / r, grid.keratin_points)
+    zero = xp.zeros_like(p.steps[:, :1, :])
+    knot_values = xp.concatenate([zero, xp.cumsum(p.steps, axis=1)], axis=1)
+    walk_k = eq.interpolate_knots(tq, grid.spacing, knot_values, len(grid.knots), xp=xp)
+    diet_k = p.baseline[:, None, :] + walk_k.mean(axis=2)
+    enrich_k = eq.enrichment(
+        tq, onset[..., None], duration[..., None], kappa[..., None], tau[..., None], xp=xp
+    ).mean(axis=2)
+    return Prediction(
+        diet=diet,
+        enrich=enrich,
+        blood0=p.disc[b.tissue] + blood_vals[..., :2],
+        blood_e=blood_vals[..., 2],
+        keratin0=p.disc[k.tissue] + diet_k,
+        keratin_e=enrich_k,
+    )
+
+
+def _np_set(full: np.ndarray, rows: np.ndarray, vals: np.ndarray) -> np.ndarray:
+    full = full.copy()
+    full[rows] = vals
+    return full
+
+
+def with_episode(y0, ye, gamma, xp: ModuleType = np):
+    """Expected values with the episode: ``y0 + ye·(1, γ)``."""
+    g = gamma[:, None] if getattr(gamma, "ndim", 0) == 1 else gamma
+    return eq.body_pool(y0, ye, g, xp=xp)

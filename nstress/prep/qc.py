@@ -1,0 +1,239 @@
+"""Quality control of the sample table: atomic C:N and its accepted range per tissue.
+
+Also holds the small helpers the other preparation steps share: the
+per-row QC text (:class:`QCLog`), the mapping from sample rows to ledger
+keys (:func:`ledger_keys`) and column access (:func:`numeric`,
+:func:`tissue_names`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from itertools import chain
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from nstress._chem_equations import cn_atomic
+from nstress.intake.ledger import Ledger
+from nstress.tissues import Tissue
+
+MASS_ATOMIC_GAP = 1.0 - 12.011 / 14.007
+"""Relative gap between a mass and an atomic C:N of the same sample (about 14 %)."""
+
+
+class QCLog:
+    """Short per-row QC remarks, joined with ``"; "`` into the ``qc`` column.
+
+    Parameters
+    ----------
+    n
+        Number of sample rows.
+    """
+
+    def __init__(self, n: int) -> None:
+        self.text = np.full(n, "", dtype=object)
+
+    def add(self, mask: np.ndarray, *parts: str | np.ndarray | tuple[np.ndarray, str]) -> None:
+        """Append a remark to the rows in ``mask``.
+
+        Parameters
+        ----------
+        mask
+            Rows to annotate.
+        *parts
+            Pieces of the remark: text, or a full-length float array
+            (formatted ``"%.2f"``), or ``(array, printf_spec)``. Only the
+            masked rows are formatted.
+        """
+        mask = np.asarray(mask, dtype=bool)
+        k = int(mask.sum())
+        if k == 0:
+            return
+        remark = np.full(k, "", dtype=object)
+        for part in parts:
+            if isinstance(part, str):
+                remark = remark + part
+            else:
+                values, spec = part if isinstance(part, tuple) else (part, "%.2f")
+                sel = np.asarray(values, dtype=float)[mask]
+                remark = remark + np.char.mod(spec, sel).astype(object)
+        old = self.text[mask]
+        sep = np.where(old == "", "", "; ").astype(object)
+        self.text[mask] = old + sep + remark
+
+
+def one_reason(reason: str) -> str:
+    """Return ``reason`` safe to join with others: the ledger separates reasons by ``"; "``."""
+    return reason.replace("; ", ", ")
+
+
+def numeric(frame: pd.DataFrame, column: str) -> np.ndarray:
+    """Return ``column`` as a float array (NaN where absent or not a number)."""
+    if column not in frame.columns:
+        return np.full(len(frame), np.nan)
+    return pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+
+
+def text(frame: pd.DataFrame, column: str) -> np.ndarray:
+    """Return ``column`` as stripped text (``""`` where absent or missing), as an object array."""
+    if column not in frame.columns:
+        return np.full(len(frame), "", dtype=object)
+    s = frame[column].astype("string").fillna("").str.strip()
+    return s.to_numpy(dtype=object)
+
+
+def tissue_names(samples: pd.DataFrame) -> np.ndarray:
+    """Return the lower-case tissue name of each row."""
+    if "tissue" not in samples.columns:
+        return np.full(len(samples), "", dtype=object)
+    s = samples["tissue"].astype("string").fillna("").str.strip().str.lower()
+    return s.to_numpy(dtype=object)
+
+
+def ledger_keys(samples: pd.DataFrame, mask: np.ndarray) -> np.ndarray:
+    """Return the ledger keys of the input rows behind the sample rows in ``mask``.
+
+    A sample that combines several input rows (replicates) carries them
+    all in ``keys``; every one of them gets the ledger entry.
+    """
+    mask = np.asarray(mask, dtype=bool)
+    if not mask.any():
+        return np.empty(0, dtype=np.int64)
+    parts = []
+    if "key" in samples.columns:
+        parts.append(pd.to_numeric(samples.loc[mask, "key"], errors="coerce").dropna().to_numpy())
+    if "keys" in samples.columns:
+        vals = samples["keys"].to_numpy(dtype=object)[mask]
+        flat = chain.from_iterable(v for v in vals if isinstance(v, tuple | list | np.ndarray))
+        parts.append(np.fromiter(flat, dtype=np.int64))
+    if not parts:
+        return np.empty(0, dtype=np.int64)
+    return np.unique(np.concatenate(parts).astype(np.int64))
+
+
+def add_cn(
+    samples: pd.DataFrame,
+    ledger: Ledger,
+    qc: QCLog,
+    *,
+    tolerance: float,
+    check: bool,
+) -> dict[str, Any]:
+    """Fill ``cn_ratio`` from %C and %N where it is missing, in place, and check agreement.
+
+    Adds ``cn_source``: ``"table"`` (given), ``"computed"`` (from mass
+    percentages, :func:`nstress._chem_equations.cn_atomic`) or ``""``
+    (unknown). Where both are given and differ by more than
+    ``tolerance`` (relative), the rows are flagged: a mass C:N entered as
+    atomic differs by about 14 %.
+
+    Parameters
+    ----------
+    samples
+        Sample table (changed in place).
+    ledger
+        Ledger to write flags to.
+    qc
+        Per-row QC remarks.
+    tolerance
+        Relative tolerance between the table's C:N and the one from %C/%N.
+    check
+        Whether to flag disagreements.
+
+    Returns
+    -------
+    dict
+        Counts for the report.
+    """
+    table = numeric(samples, "cn_ratio")
+    pc, pn = numeric(samples, "pct_C"), numeric(samples, "pct_N")
+    ok = (pc > 0) & (pc <= 100) & (pn > 0) & (pn <= 100)
+    computed = np.where(ok, cn_atomic(pc, pn), np.nan)
+    has_table = np.isfinite(table) & (table > 0)
+    has_comp = np.isfinite(computed)
+    cn = np.where(has_table, table, computed)
+    source = np.where(has_table, "table", np.where(has_comp, "computed", "")).astype(object)
+    disagree = np.zeros(len(samples), dtype=bool)
+    if check:
+        both = has_table & has_comp
+        with np.errstate(invalid="ignore"):
+            disagree = both & (np.abs(table - computed) > tolerance * computed)
+        ledger.flag(
+            ledger_keys(samples, disagree),
+            f"cn_ratio disagrees with %C/%N by more than {tolerance:.0%} "
+            f"(a mass C:N entered as atomic differs by {MASS_ATOMIC_GAP:.0%})",
+        )
+        qc.add(disagree, "C:N ", table, " in table vs ", computed, " from %C/%N")
+    samples["cn_ratio"] = cn
+    samples["cn_source"] = source
+    return {
+        "from_table": int(has_table.sum()),
+        "computed": int((~has_table & has_comp).sum()),
+        "missing": int((~has_table & ~has_comp).sum()),
+        "table_disagrees_with_percent": int(disagree.sum()),
+        "tolerance": float(tolerance),
+        "basis": "atomic C:N = (%C/12.011)/(%N/14.007)",
+    }
+
+
+def check_cn_range(
+    samples: pd.DataFrame,
+    tissues: Mapping[str, Tissue],
+    ledger: Ledger,
+    qc: QCLog,
+) -> dict[str, Any]:
+    """Flag rows whose C:N lies outside their tissue's accepted range.
+
+    The ledger reason names the tissue, the range, its source
+    (``Tissue.sources["cn"]``) and whether the C:N was given or computed
+    from %C/%N; the QC text gives the row's value.
+
+    Parameters
+    ----------
+    samples
+        Sample table with ``cn_ratio`` and ``cn_source`` (see :func:`add_cn`).
+    tissues
+        Tissue registry.
+    ledger
+        Ledger to write flags to.
+    qc
+        Per-row QC remarks.
+
+    Returns
+    -------
+    dict
+        Per tissue: range, source and counts below, above and without C:N.
+    """
+    names = tissue_names(samples)
+    cn = numeric(samples, "cn_ratio")
+    source = text(samples, "cn_source")
+    known = np.isfinite(cn)
+    out: dict[str, Any] = {}
+    for name in sorted(set(names.tolist())):
+        tissue = tissues.get(name)
+        if tissue is None:
+            continue
+        m = names == name
+        lo, hi = (float(v) for v in tissue.cn_range)
+        src = one_reason(tissue.sources.get("cn", "no source given"))
+        with np.errstate(invalid="ignore"):
+            below, above = m & known & (cn < lo), m & known & (cn > hi)
+        for origin, label in (("table", "C:N as given"), ("computed", "C:N from %C/%N")):
+            bad = (below | above) & (source == origin)
+            ledger.flag(
+                ledger_keys(samples, bad),
+                f"C:N outside the {name} range {lo:g}-{hi:g} ({src}), {label}",
+            )
+        qc.add(below, "C:N ", cn, f" below {lo:g}")
+        qc.add(above, "C:N ", cn, f" above {hi:g}")
+        out[name] = {
+            "range": [lo, hi],
+            "source": src,
+            "n_rows": int(m.sum()),
+            "n_below": int(below.sum()),
+            "n_above": int(above.sum()),
+            "n_without_cn": int((m & ~known).sum()),
+        }
+    return out

@@ -1,0 +1,1 @@
+"""Products: timelines, episodes, screening, figures and the report."""

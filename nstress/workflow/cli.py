@@ -1,0 +1,425 @@
+"""The ``nstress`` command line.
+
+Each subcommand is a :class:`Command` (name, help, a function that adds its
+arguments, a function that runs it and returns an exit code) put into the
+registry with :func:`register`; :func:`main` builds the parser from the
+registry. Add a command by writing its two functions and registering it
+(see ``check`` below).
+
+Exit codes (see :mod:`nstress.errors`): 0 success; 1 a fit failed; 2 bad
+input or configuration, or a table with no usable sample. Errors are printed
+as ``nstress: error: <message>`` on stderr, without a traceback. Results go
+to files, the summary to stdout, progress to stderr.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, TextIO
+
+import pandas as pd
+
+from nstress import __version__
+from nstress.atomic import atomic_write
+from nstress.errors import EXIT_BAD_INPUT, EXIT_OK, NstressError
+
+
+@dataclass(frozen=True)
+class Command:
+    """One subcommand.
+
+    Parameters
+    ----------
+    name
+        What the user types (``nstress NAME``).
+    help
+        One line for ``nstress --help``.
+    add_arguments
+        Adds the command's arguments to its sub-parser.
+    run
+        Carries the command out; returns the exit code.
+    description, epilog
+        Shown by ``nstress NAME --help``.
+    """
+
+    name: str
+    help: str
+    add_arguments: Callable[[argparse.ArgumentParser], None]
+    run: Callable[[argparse.Namespace], int]
+    description: str = ""
+    epilog: str = ""
+
+
+COMMANDS: dict[str, Command] = {}
+
+
+def register(command: Command) -> Command:
+    """Add ``command`` to the registry (a later one with the same name replaces it).
+
+    Parameters
+    ----------
+    command
+        The command.
+
+    Returns
+    -------
+    Command
+        ``command``, unchanged.
+    """
+    COMMANDS[command.name] = command
+    return command
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """Return the top-level parser with one sub-parser per registered command."""
+    parser = argparse.ArgumentParser(
+        prog="nstress",
+        description="Detect and date catabolic (nutritional-stress) episodes from serial "
+        "δ15N/δ13C of keratin segments and blood.",
+        epilog="Run 'nstress COMMAND --help' for the options of a command.",
+    )
+    parser.add_argument("--version", action="version", version=f"nstress {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for cmd in COMMANDS.values():
+        p = sub.add_parser(
+            cmd.name,
+            help=cmd.help,
+            description=cmd.description or cmd.help,
+            epilog=cmd.epilog,
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
+        cmd.add_arguments(p)
+        p.set_defaults(_command=cmd)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the command line.
+
+    Parameters
+    ----------
+    argv
+        Arguments without the program name (default: ``sys.argv[1:]``).
+
+    Returns
+    -------
+    int
+        The exit code.
+    """
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # --help, --version, or a usage error (argparse printed it)
+        return exc.code if isinstance(exc.code, int) else EXIT_BAD_INPUT
+    command: Command | None = getattr(args, "_command", None)
+    if command is None:
+        parser.print_help(sys.stderr)
+        return EXIT_BAD_INPUT
+    try:
+        return command.run(args)
+    except NstressError as exc:
+        print(f"nstress: error: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("nstress: interrupted", file=sys.stderr)
+        return 130
+
+
+class Progress:
+    """Progress lines on stderr, silenced by ``--quiet``."""
+
+    def __init__(self, quiet: bool = False, verbose: bool = False, stream: TextIO | None = None):
+        self.quiet, self.verbose = quiet, verbose
+        self.stream = stream
+
+    def __call__(self, message: str, *, detail: bool = False) -> None:
+        """Print ``message`` (``detail`` lines only with ``--verbose``)."""
+        if self.quiet or (detail and not self.verbose):
+            return
+        print(f"nstress: {message}", file=self.stream or sys.stderr, flush=True)
+
+
+# ---------------------------------------------------------------- check
+
+_CHECK_EPILOG = """\
+examples:
+  nstress check whiskers.csv
+  nstress check whiskers.csv plasma.csv --out qc/     # also writes qc/ledger.csv
+
+The table is long format, one row per measured sample, with columns
+individual, tissue, d15N, d13C, and position_mm + collected (keratin) or
+date (blood). Exit code 0: usable (at least one used or flagged sample);
+2: not usable, or the input has errors (listed on stderr).
+"""
+
+
+def _check_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "tables", nargs="+", metavar="TABLE", help="sample table(s): CSV, Parquet, Excel"
+    )
+    p.add_argument("--out", metavar="DIR", type=Path, help="write DIR/ledger.csv (every input row)")
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    g.add_argument("--verbose", action="store_true", help="more detail (rows per reason, notes)")
+
+
+def _load_prep() -> Any:
+    """Return the :mod:`nstress.prep` module if it offers ``prepare``, else ``None``."""
+    try:
+        module = importlib.import_module("nstress.prep")
+    except ModuleNotFoundError as exc:
+        if exc.name in ("nstress.prep", "nstress"):
+            return None
+        raise
+    return module if callable(getattr(module, "prepare", None)) else None
+
+
+def _run_check(args: argparse.Namespace) -> int:
+    from nstress.intake import read_samples
+
+    progress = Progress(args.quiet, args.verbose)
+    progress(f"reading {len(args.tables)} table(s)", detail=True)
+    intake = read_samples(args.tables)
+    samples, ledger, prep_text = intake.samples, intake.ledger, ""
+    prep = _load_prep()
+    if prep is not None:
+        progress("preparing (quality control, corrections)", detail=True)
+        prepared = prep.prepare(intake, tissues=intake.tissues)
+        samples, ledger = prepared.samples, prepared.ledger
+        summarise = getattr(prep, "summarise", None)
+        prep_text = summarise(prepared) if callable(summarise) else ""
+    usable = _usable_count(samples, ledger)
+    frame = ledger.to_frame()
+    if args.out is not None:
+        path = atomic_write(Path(args.out) / "ledger.csv", lambda p: write_csv(frame, p))
+        progress(f"wrote {path}")
+    if not args.quiet:
+        print(summarise_check(intake, samples, ledger, usable, verbose=args.verbose,
+                              prep_text=prep_text, frame=frame))
+    if usable == 0:
+        print("nstress: error: no usable sample (every row was excluded; see the reasons above)",
+              file=sys.stderr)
+        return EXIT_BAD_INPUT
+    return EXIT_OK
+
+
+def write_csv(frame: pd.DataFrame, path: Path) -> None:
+    """Write ``frame`` (without its index) as CSV, with pyarrow's fast writer when it can.
+
+    Parameters
+    ----------
+    frame
+        The table.
+    path
+        Destination (normally a temporary path from :mod:`nstress.atomic`).
+    """
+    simple = all(
+        pd.api.types.is_string_dtype(t) or pd.api.types.is_numeric_dtype(t) for t in frame.dtypes
+    )
+    try:
+        import pyarrow as pa
+        import pyarrow.csv as pacsv
+    except ImportError:
+        simple = False
+    if simple:
+        try:
+            table = pa.Table.from_pandas(frame, preserve_index=False)
+        except (pa.ArrowException, TypeError, ValueError):
+            simple = False
+    if not simple:  # dates, mixed objects or no pyarrow: pandas formats them
+        frame.to_csv(path, index=False)
+        return
+    pacsv.write_csv(table, path)
+
+
+def _usable_count(samples: pd.DataFrame, ledger: Any) -> int:
+    """Count the samples whose (first) ledger row is used or flagged."""
+    if "key" not in samples.columns or len(samples) == 0:
+        return len(samples)
+    status = ledger.status_of(samples["key"].to_numpy())
+    return int((status != "excluded").sum())
+
+
+def summarise_check(
+    intake: Any,
+    samples: pd.DataFrame,
+    ledger: Any,
+    usable: int,
+    *,
+    verbose: bool = False,
+    prep_text: str = "",
+    frame: pd.DataFrame | None = None,
+) -> str:
+    """Return the text summary printed by ``nstress check``.
+
+    Parameters
+    ----------
+    intake
+        The :class:`~nstress.intake.Intake` (sources, notes, references).
+    samples
+        The samples to describe (the intake's, or after preparation).
+    ledger
+        The ledger to count.
+    usable
+        Number of usable samples.
+    verbose
+        Add per-individual counts, rows per reason and notes.
+    prep_text
+        The preparation layer's own summary; when given it replaces the
+        sample and row counts computed here (it covers the same items).
+    frame
+        ``ledger.to_frame()`` if already at hand (saves time on big tables).
+
+    Returns
+    -------
+    str
+    """
+    lines: list[str] = []
+    n_rows = len(ledger)
+    lines.append(f"Input: {len(intake.sources)} file(s), {n_rows} row(s)")
+    for s in intake.sources:
+        lines.append(f"  {s['path']}: {s['rows']} row(s), sha256 {str(s['sha256'])[:12]}")
+    ind = samples["individual"] if "individual" in samples else pd.Series(dtype=str)
+    lines.append(f"Samples: {len(samples)} ({usable} usable), individuals: {ind.nunique()}")
+    if prep_text:
+        lines.extend(prep_text.rstrip().splitlines())
+    else:
+        frame = ledger.to_frame() if frame is None else frame
+        lines.extend(_own_counts(intake, samples, frame, verbose))
+    if verbose:
+        for note in intake.notes:
+            lines.append(f"Note: {note}")
+        if len(samples) and "individual" in samples:
+            per = samples.groupby(["individual", "tissue"]).size()
+            lines.append("Samples per individual and tissue:")
+            lines.extend(f"  {i} {t}: {m}" for (i, t), m in per.items())
+    lines.append("Verdict: " + ("usable" if usable else "NOT usable (no used or flagged sample)"))
+    return "\n".join(lines)
+
+
+def _own_counts(
+    intake: Any, samples: pd.DataFrame, frame: pd.DataFrame, verbose: bool
+) -> list[str]:
+    """Describe groups, tissues, dates and ledger rows by reason."""
+    lines = []
+    if "group" in samples and len(samples):
+        groups = samples["group"].value_counts(sort=False)
+        lines.append("Groups: " + ", ".join(f"{g} ({n})" for g, n in groups.items()))
+    if "tissue" in samples and len(samples):
+        parts = []
+        for (t, k), m in samples.groupby(["tissue", "tissue_class"]).size().items():
+            parts.append(f"{t} ({k}): {m}")
+        lines.append("Tissues: " + ", ".join(parts))
+    span = _date_span(samples)
+    if span:
+        lines.append(f"Dates: {span}")
+    if len(intake.references):
+        rm = intake.references["reference_material"].value_counts()
+        lines.append("Reference material rows: " + ", ".join(f"{r} ({n})" for r, n in rm.items()))
+    counts = frame["status"].value_counts()
+    lines.append(
+        "Rows: " + ", ".join(f"{counts.get(s, 0)} {s}" for s in ("used", "flagged", "excluded"))
+    )
+    summary = (
+        frame.assign(reason=frame["reason"].replace("", "-"))
+        .groupby(["status", "reason"]).size().rename("rows").reset_index()
+    )
+    for _, r in summary.iterrows():
+        lines.append(f"  {r['status']:<9} {int(r['rows']):>8}  {r['reason']}")
+        if verbose and r["status"] != "used":
+            reason = "" if r["reason"] == "-" else r["reason"]
+            hit = frame[(frame["status"] == r["status"]) & (frame["reason"] == reason)]
+            where = ", ".join(f"{f} row {n}" for f, n in
+                              zip(hit["source_file"].head(5), hit["source_row"].head(5),
+                                  strict=True))
+            lines.append(f"            e.g. {where}{' ...' if len(hit) > 5 else ''}")
+    return lines
+
+
+def _date_span(samples: pd.DataFrame) -> str:
+    parts = []
+    for col, what in (("collected", "keratin collected"), ("date", "blood drawn")):
+        if col in samples and samples[col].notna().any():
+            d = pd.to_datetime(samples[col])
+            parts.append(f"{what} {d.min():%Y-%m-%d} to {d.max():%Y-%m-%d}")
+    return "; ".join(parts)
+
+
+register(
+    Command(
+        name="check",
+        help="read, validate and quality-check sample tables; print a summary",
+        add_arguments=_check_arguments,
+        run=_run_check,
+        description="Read, validate and quality-check sample tables without fitting. "
+        "Prints individuals, tissues, date span and rows used / flagged / excluded by reason.",
+        epilog=_CHECK_EPILOG,
+    )
+)
+
+
+# ---------------------------------------------------------------- fit
+
+_FIT_EPILOG = """\
+examples:
+  nstress fit colony.csv --out results/
+  nstress fit whiskers.csv plasma.csv --out results/ --draws 1000 --tune 1000 --seed 7
+
+Writes ledger.csv, timelines.csv, screening.csv, colony_summary.csv,
+timelines.nc, posterior.nc and manifest.json (last) into DIR.
+Exit code 0: fitted and diagnostics passed; 1: the fit failed or failed its
+diagnostics (products are still written, marked); 2: bad input.
+"""
+
+
+def _fit_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("tables", nargs="+", metavar="TABLE", help="sample table(s)")
+    p.add_argument("--out", metavar="DIR", type=Path, required=True, help="output directory")
+    p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
+    p.add_argument("--draws", type=int, default=1000, help="kept draws per chain (default 1000)")
+    p.add_argument("--tune", type=int, default=1000, help="warm-up draws per chain (default 1000)")
+    p.add_argument("--chains", type=int, default=2, help="chains (default 2)")
+    p.add_argument("--sampler", choices=["auto", "nutpie", "pymc"], default="auto",
+                   help="NUTS implementation (default: nutpie when installed)")
+    p.add_argument("--bin-days", type=float, default=4.0, help="grid bin width in days")
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    g.add_argument("--verbose", action="store_true", help="more detail")
+
+
+def _run_fit(args: argparse.Namespace) -> int:
+    from nstress.workflow.pipeline import FitConfig, fit_tables
+
+    for name in ("draws", "tune", "chains"):
+        if getattr(args, name) < 1:
+            raise NstressError(f"--{name} must be at least 1")
+    progress = Progress(args.quiet, args.verbose)
+    cfg = FitConfig(
+        bin_days=args.bin_days,
+        sampler={"draws": args.draws, "tune": args.tune, "chains": args.chains,
+                 "seed": args.seed, "sampler": args.sampler},
+        progress=not args.quiet,
+    )
+    manifest = fit_tables(args.tables, args.out, cfg, log=progress)
+    if not manifest["diagnostics"]["ok"]:
+        for r in manifest["diagnostics"]["reasons"][:10]:
+            progress(f"diagnostics: {r}")
+        return 1
+    return EXIT_OK
+
+
+register(
+    Command(
+        name="fit",
+        help="fit the model to sample tables and write timelines, screening and diagnostics",
+        add_arguments=_fit_arguments,
+        run=_run_fit,
+        description="The whole pipeline on one or more tables with default settings.",
+        epilog=_FIT_EPILOG,
+    )
+)

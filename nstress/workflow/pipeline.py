@@ -1,0 +1,245 @@
+"""One unit of work: tables in, every product out (intake -> prep -> model -> products).
+
+:func:`fit_tables` is what ``nstress fit`` runs and what a workflow runs for
+each unit. Everything that can fail on the user's input fails before the
+first file is written; each file is written atomically, and
+``manifest.json`` is written last, so a directory with a manifest is a
+finished one.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import platform
+import time
+from collections.abc import Callable
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+from nstress import __version__
+from nstress.atomic import atomic_write, atomic_write_text
+from nstress.errors import FitError
+
+FINISHED_MARK = "manifest.json"
+
+
+@dataclass
+class FitConfig:
+    """Settings of one fit. ``result`` settings change results; ``cores``/``progress`` do not.
+
+    Attributes
+    ----------
+    bin_days
+        Grid bin width Δ (days).
+    knot_days
+        Diet random-walk knot spacing (days).
+    priors
+        Prior overrides.
+    tissues
+        Tissue overrides / declarations.
+    qc
+        Preparation (QC, lipid, scale) configuration.
+    sampler
+        Sampler settings (draws, tune, chains, seed, sampler, target_accept, kwargs).
+    screening
+        Status thresholds (flag, clear, min_samples, min_d13C).
+    diagnostics
+        Pass marks (rhat_max, ess_bulk_min, ess_tail_min, divergences_max, ppc_coverage_min).
+    product_draws
+        Posterior draws used for products and checks.
+    """
+
+    bin_days: float = 4.0
+    knot_days: float = 16.0
+    priors: dict[str, dict[str, Any]] = field(default_factory=dict)
+    tissues: dict[str, dict[str, Any]] = field(default_factory=dict)
+    qc: dict[str, Any] = field(default_factory=dict)
+    sampler: dict[str, Any] = field(default_factory=dict)
+    screening: dict[str, Any] = field(default_factory=dict)
+    diagnostics: dict[str, Any] = field(default_factory=dict)
+    product_draws: int = 1000
+    cores: int | None = None
+    progress: bool = True
+
+    def result_config(self) -> dict[str, Any]:
+        """The settings that change results, as plain data (hashed for caching)."""
+        d = asdict(self)
+        d.pop("cores")
+        d.pop("progress")
+        d["sampler"] = {k: v for k, v in d["sampler"].items() if k not in ("cores", "progress")}
+        return d
+
+
+def sha256_file(path: str | Path) -> str:
+    """SHA-256 of a file's bytes."""
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        for chunk in iter(lambda: f.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def config_hash(inputs: list[dict[str, Any]], config: dict[str, Any]) -> str:
+    """Content hash of the inputs' sha256s and the result configuration."""
+    blob = json.dumps({"inputs": [i["sha256"] for i in inputs], "config": config,
+                       "version": __version__}, sort_keys=True, default=str)
+    return hashlib.sha256(blob.encode()).hexdigest()
+
+
+def versions() -> dict[str, str]:
+    """Versions of Python and the main packages."""
+    import importlib.metadata as md
+
+    out = {"python": platform.python_version(), "nstress": __version__}
+    for pkg in ("numpy", "pandas", "scipy", "pymc", "pytensor", "arviz", "xarray", "nutpie",
+                "matplotlib"):
+        try:
+            out[pkg] = md.version(pkg)
+        except md.PackageNotFoundError:
+            pass
+    return out
+
+
+def fit_tables(
+    tables: list[str | Path],
+    out: str | Path,
+    config: FitConfig | None = None,
+    log: Callable[[str], None] | None = None,
+) -> dict[str, Any]:
+    """Run the whole pipeline on sample tables and write every product into ``out``.
+
+    Parameters
+    ----------
+    tables
+        Sample table paths.
+    out
+        Output directory (created).
+    config
+        Fit settings.
+    log
+        Progress callback (one line per step).
+
+    Returns
+    -------
+    dict
+        The manifest.
+
+    Raises
+    ------
+    InputError, ConfigError
+        Bad input or configuration (nothing is written).
+    FitError
+        The sampler failed (nothing but the ledger is written).
+    """
+    from nstress.intake import read_samples
+    from nstress.model import posterior as post
+    from nstress.model.build import ModelSpec, build_model
+    from nstress.model.diagnose import Thresholds, diagnose
+    from nstress.model.draws import collect, latent_paths
+    from nstress.model.fit import SamplerSettings, sample
+    from nstress.prep import prepare
+    from nstress.prep.timebase import build_timebase
+    from nstress.products.screening import ScreeningRules, colony_summary, screening_table
+    from nstress.products.timelines import compute_products
+    from nstress.tissues import resolve_tissues
+    from nstress.workflow.cli import write_csv
+
+    cfg = config or FitConfig()
+    say = log or (lambda m: None)
+    out = Path(out)
+    t_start = time.perf_counter()
+    timings: dict[str, float] = {}
+
+    # ---- everything that can fail on the user's input, before any write ----
+    tissues = resolve_tissues(cfg.tissues)
+    settings = SamplerSettings(**{**cfg.sampler, "progress": cfg.progress, "cores": cfg.cores})
+    rules = ScreeningRules(**cfg.screening)
+    thresholds = Thresholds(**cfg.diagnostics)
+    say(f"reading {len(tables)} table(s)")
+    intake = read_samples([str(t) for t in tables], tissues=tissues)
+    prepared = prepare(intake, tissues=tissues, config=cfg.qc or None)
+    used = prepared.samples
+    excluded = set(prepared.ledger.excluded_keys().tolist())
+    used = used[~used["key"].isin(excluded)]
+    tb = build_timebase(used, tissues, bin_width=cfg.bin_days)
+    timings["intake_prep_s"] = time.perf_counter() - t_start
+    say(f"{tb.n_individuals} individuals, {len(used)} samples, tissues {', '.join(tb.tissues)}")
+    t0 = time.perf_counter()
+    built = build_model(tb, ModelSpec(knot_days=cfg.knot_days, priors=cfg.priors))
+    timings["build_s"] = time.perf_counter() - t0
+    result_cfg = cfg.result_config()
+    digest = config_hash(intake.sources, result_cfg)
+
+    # ---- fit ------------------------------------------------------------
+    say(f"sampling: {settings.chains} chains x {settings.draws} draws (+{settings.tune} tune)")
+    try:
+        fit = sample(built, settings)
+    except FitError:
+        atomic_write(out / "ledger.csv", lambda p: write_csv(prepared.ledger.to_frame(), p))
+        raise
+    timings.update(fit.timings)
+    say(f"sampled with {fit.sampler} in {fit.timings.get('sample_s', 0):.0f} s; diagnosing")
+
+    # ---- products ----------------------------------------------------------
+    t0 = time.perf_counter()
+    seed = int(settings.seed)
+    draws = collect(built, fit.idata, max_draws=cfg.product_draws, seed=seed)
+    diag = diagnose(built, fit.idata, draws, thresholds, seed=seed)
+    paths = latent_paths(built, draws)
+    eps = built.priors["epsilon_loss"]
+    prods = compute_products(built, draws, paths, epsilon_mu=eps["mu"], epsilon_sd=eps["sigma"],
+                             seed=seed)
+    screen = screening_table(prods.episodes, tb, diag, rules)
+    summary = colony_summary(screen, draws.episode, tb.groups, tb.group_index)
+    timings["products_s"] = time.perf_counter() - t0
+    prods.dataset.attrs.update({"diagnostics_ok": int(diag.ok), "nstress_version": __version__,
+                                "input_hash": digest})
+
+    # ---- write ----------------------------------------------------------------
+    out.mkdir(parents=True, exist_ok=True)
+    (out / FINISHED_MARK).unlink(missing_ok=True)
+    atomic_write(out / "ledger.csv", lambda p: write_csv(prepared.ledger.to_frame(), p))
+    tl = prods.timelines.copy()
+    tl["diagnostics_ok"] = tl["individual"].map(dict(zip(screen["individual"],
+                                                         screen["diagnostics_ok"], strict=True)))
+    atomic_write(out / "timelines.csv", lambda p: tl.to_csv(p, index=False, float_format="%.5g"))
+    atomic_write(out / "screening.csv", lambda p: screen.to_csv(p, index=False,
+                                                                float_format="%.5g"))
+    atomic_write(out / "colony_summary.csv", lambda p: summary.to_csv(p, index=False,
+                                                                      float_format="%.5g"))
+    atomic_write(out / "timelines.nc", lambda p: prods.dataset.to_netcdf(p, engine="h5netcdf"))
+    attrs = {
+        "config": result_cfg,
+        "version": __version__,
+        "input_hash": digest,
+        "inputs": intake.sources,
+        "diagnostics_ok": diag.ok,
+        "sampler": fit.sampler,
+    }
+    post.save(fit.idata, out / "posterior.nc", attrs)
+    timings["total_s"] = time.perf_counter() - t_start
+    manifest = {
+        "nstress_version": __version__,
+        "inputs": intake.sources,
+        "config": result_cfg,
+        "execution": {"cores": cfg.cores},
+        "seed": seed,
+        "input_hash": digest,
+        "sampler": fit.sampler,
+        "versions": versions(),
+        "timings_s": {k: round(v, 3) for k, v in timings.items()},
+        "diagnostics": diag.to_dict(),
+        "counts": {
+            "individuals": int(tb.n_individuals),
+            "samples": int(len(used)),
+            "rows": int(len(prepared.ledger)),
+            "status": screen["status"].value_counts().to_dict(),
+        },
+        "prep_report": prepared.report,
+        "files": sorted(p.name for p in out.iterdir() if not p.name.startswith(".")),
+    }
+    atomic_write_text(out / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
+    say(f"wrote {out} ({'diagnostics passed' if diag.ok else 'DIAGNOSTICS FAILED'})")
+    return manifest

@@ -1,0 +1,295 @@
+"""The forward model (nstress.model.forward.predict) against brute-force references."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from nstress import equations as eq
+from nstress.model.forward import Params, make_grid, predict, with_episode
+from nstress.model.simulate import ColonySpec, simulate_colony, table_to_samples
+from nstress.prep.timebase import build_timebase
+
+EPOCH = np.datetime64("1970-01-01", "D")
+N_FINE = 2000  # points of the brute-force window average
+
+
+@pytest.fixture(scope="module")
+def sim():
+    # A small synthetic colony: fasters (one also shifts diet), one diet-shifter; two animals
+    # with paired blood draws, two keratin-only (exercises the blood scatter into padded rows).
+    spec = ColonySpec(
+        n_individuals=4,
+        seed=21,
+        kind_shares={"faster": 0.5, "faster+shift": 0.25, "trophic_shift": 0.25},
+        blood_share=0.5,
+    )
+    s = simulate_colony(spec)
+    tb = build_timebase(table_to_samples(s.table))
+    grid = make_grid(tb, knot_days=spec.knot_days)
+    return s, tb, grid
+
+
+def _knot_values(p: Params, grid) -> np.ndarray:
+    """(I, K, 2) diet at the knots: baseline + cumulative walk (0 at the first knot)."""
+    walk = np.concatenate([np.zeros_like(p.steps[:, :1]), np.cumsum(p.steps, axis=1)], axis=1)
+    return p.baseline[:, None, :] + walk
+
+
+def _windows(tb, growth):
+    """Growth window of every keratin segment from the sample table itself.
+
+    A segment at midpoint x (mm from the root), length l, pulled on t_c, grew over
+    [t_c - (x + l/2)/g, t_c - (x - l/2)/g] with g = r * g0 (model.md section 1).
+    """
+    k = tb.keratin
+    rows = tb.samples.loc[k.sample[k.mask]]
+    x = rows["position_mm"].to_numpy(float)
+    seg = rows["segment_length_mm"].to_numpy(float)
+    g0 = np.array([tb.tissue_defs[t].growth_mm_per_day for t in rows["tissue"]])
+    assert all(tb.tissue_defs[t].growth_model == "linear" for t in rows["tissue"])
+    ii = np.nonzero(k.mask)[0]
+    origin = (tb.origin[ii] - EPOCH).astype(float)
+    collected = pd.to_datetime(rows["collected"]).to_numpy().astype("datetime64[D]")
+    t_c = (collected - EPOCH).astype(float) + 0.5 - origin  # noon of the collection day
+    r = growth[ii, k.slot[k.mask]]
+    start = t_c - (x + seg / 2) / (g0 * r)
+    end = t_c - np.clip(x - seg / 2, 0.0, None) / (g0 * r)
+    return ii, start, end
+
+
+def _midpoint_bound(ii, start, end, n, p: Params, grid):
+    """Error bound of the n-point midpoint rule for the window mean of D and of E.
+
+    Midpoint rule on a sub-interval of width h (e.g. Burden & Faires, Numerical Analysis,
+    from memory): |error| <= h^3/24 max|f''| for smooth f, and <= |jump of f'| h^2/8 for a
+    kink (the worst case is a kink at the sub-interval's midpoint). D is piecewise linear
+    with kinks at the knots (slope jumps by the change of step / spacing, and to 0 outside
+    the knots); E has kinks of size kappa at onset and end of the episode and |E''| <=
+    kappa/tau elsewhere. Divided by the window length L for the mean.
+    """
+    L = end - start
+    h = L / n
+    s = grid.spacing
+    slopes = np.concatenate(
+        [np.zeros_like(p.steps[:, :1]), p.steps / s, np.zeros_like(p.steps[:, :1])], axis=1
+    )  # (I, K + 1, 2): slope left of knot 0, between knots, right of the last knot
+    jump = np.abs(np.diff(slopes, axis=1))  # (I, K, 2) at each knot
+    inside = (grid.knots[None, :] >= start[:, None]) & (grid.knots[None, :] <= end[:, None])
+    kink_d = (jump[ii] * inside[..., None]).sum(axis=1)  # (n_seg, 2)
+    bound_d = kink_d * (h**2 / (8 * L))[:, None]
+    kappa, tau = p.kappa[ii], p.tau_rec[ii]
+    edges = np.stack([p.onset[ii], p.onset[ii] + p.duration[ii]], axis=1)
+    n_kinks = ((edges >= start[:, None]) & (edges <= end[:, None])).sum(axis=1)
+    bound_e = n_kinks * kappa * h**2 / (8 * L) + kappa / tau * h**2 / 24
+    return bound_d, bound_e
+
+
+@pytest.mark.parametrize("growth_scale", [1.0, 0.7, 1.6])
+@pytest.mark.parametrize("n_points", [6, 2])
+def test_keratin_is_window_mean_of_pool(sim, growth_scale, n_points):
+    s, tb, _ = sim
+    grid = make_grid(tb, knot_days=s.spec.knot_days, keratin_points=n_points)
+    p = dataclasses.replace(s.params, growth=s.params.growth * growth_scale)
+    pred = predict(tb, grid, p)
+    ii, start, end = _windows(tb, p.growth)
+
+    # brute force: fine midpoint grid over each window; D by numpy's own linear interpolation
+    # of the knot values (held constant outside the knots), E by the closed form (checked
+    # against an ODE solver in test_equations.py)
+    f = (np.arange(N_FINE) + 0.5) / N_FINE
+    tt = start[:, None] + (end - start)[:, None] * f  # (n_seg, N_FINE)
+    kv = _knot_values(p, grid)
+    diet = np.stack(
+        [
+            np.stack([np.interp(tt[j], grid.knots, kv[i, :, c]) for j, i in enumerate(ii)])
+            for c in range(2)
+        ],
+        axis=-1,
+    ).mean(axis=1)
+    enrich = eq.enrichment(
+        tt, p.onset[ii, None], p.duration[ii, None], p.kappa[ii, None], p.tau_rec[ii, None]
+    ).mean(axis=1)
+
+    # tolerance: the midpoint-rule bound for the model's n points plus that of the
+    # brute force's 2,000 points, plus rounding
+    bd, be = _midpoint_bound(ii, start, end, n_points, p, grid)
+    bd_f, be_f = _midpoint_bound(ii, start, end, N_FINE, p, grid)
+    k = tb.keratin
+    disc = p.disc[k.tissue[k.mask]]
+    err_d = np.abs(pred.keratin0[k.mask] - disc - diet)
+    err_e = np.abs(pred.keratin_e[k.mask] - enrich)
+    assert np.all(err_d <= bd + bd_f + 1e-12), (err_d.max(), (bd + bd_f).max())
+    assert np.all(err_e <= be + be_f + 1e-12), (err_e.max(), (be + be_f).max())
+    # the observable: delta15N = D_N + E, delta13C = D_C + gamma E
+    y = with_episode(pred.keratin0, pred.keratin_e, p.gamma)[k.mask]
+    g = p.gamma[ii]
+    ref = disc + diet + np.stack([enrich, g * enrich], axis=-1)
+    tol = np.stack([bd[:, 0] + be, bd[:, 1] + np.abs(g) * be], axis=-1) * (1 + N_FINE**-2)
+    assert np.all(np.abs(y - ref) <= tol + 1e-12)
+    # the data really exercise the check: episodes inside the keratin record, and windows
+    # that cross knots
+    assert (p.kappa[ii] > 0).any() and (enrich > 0.1).any()
+    assert (bd > 0).any()
+    if n_points == 6:
+        # with the default 6 points the quadrature error is far below the analytical SD
+        # (0.15 permil, common practice) of a measurement
+        assert bd.max() < 0.01 and be.max() < 0.01
+
+
+def test_keratin_windows_follow_growth(sim):
+    # r scales growth: a faster whisker (r = 2) records each segment twice as close to the
+    # collection date. With a pool that is linear in time (constant walk steps, no episode)
+    # the window mean is the pool at the window centre, exactly for the midpoint rule.
+    s, tb, grid = sim
+    p0 = s.params
+    steps = np.full_like(p0.steps, 0.05)
+    k = tb.keratin
+    for r in (1.0, 2.0):
+        p = dataclasses.replace(
+            p0, steps=steps, kappa=np.zeros_like(p0.kappa), growth=np.full_like(p0.growth, r)
+        )
+        y = predict(tb, grid, p).keratin0 - p.disc[k.tissue]
+        age = k.t - 0.5 * (k.h_lo + k.h_hi) / r  # window centre
+        expected = p.baseline[:, None, :] + 0.05 * age[..., None] / grid.spacing
+        inside = k.mask & (k.t - k.h_hi / r >= 0)
+        np.testing.assert_allclose(y[inside], expected[inside], atol=1e-10)
+
+
+def test_blood_prediction_equals_reference_weights(sim):
+    # The fast form inside predict (filtered pool, gathered per draw) must equal the reference
+    # one-compartment weights (blood_weights) applied to the pool on the bins.
+    s, tb, grid = sim
+    p = s.params
+    pred = predict(tb, grid, p)
+    # latent paths on the bins: D by numpy interpolation of the knot values, E closed form
+    kv = _knot_values(p, grid)
+    diet = np.stack(
+        [
+            np.stack([np.interp(tb.bin_mid, grid.knots, kv[i, :, c]) for i in range(len(kv))])
+            for c in range(2)
+        ],
+        axis=-1,
+    )
+    np.testing.assert_allclose(pred.diet, diet, atol=1e-12)
+    enrich = eq.enrichment(
+        tb.bin_mid[None, :],
+        p.onset[:, None],
+        p.duration[:, None],
+        p.kappa[:, None],
+        p.tau_rec[:, None],
+    )
+    np.testing.assert_allclose(pred.enrich, enrich, atol=1e-12)
+    b = tb.blood
+    assert b.mask.any() and (~b.mask.any(axis=1)).any()  # some animals have no blood
+    rate = p.rate[b.tissue][..., None]
+    w = eq.blood_weights(b.t[..., None], tb.bin_lo, tb.bin_width, rate)
+    ref0 = p.disc[b.tissue] + np.einsum("int,itc->inc", w, diet)
+    ref_e = np.einsum("int,it->in", w, enrich)
+    np.testing.assert_allclose(pred.blood0[b.mask], ref0[b.mask], rtol=0, atol=1e-12)
+    np.testing.assert_allclose(pred.blood_e[b.mask], ref_e[b.mask], rtol=0, atol=1e-12)
+    assert ref_e[b.mask].max() > 0.1  # the draws see the episode
+
+
+# --------------------------------------------------------------------------
+# the same graph in PyTensor
+# --------------------------------------------------------------------------
+_OUTPUTS = ("diet", "enrich", "blood0", "blood_e", "keratin0", "keratin_e")
+
+
+def _symbolic(p: Params):
+    import pytensor.tensor as pt
+
+    return {
+        f.name: pt.tensor(f.name, shape=(None,) * np.ndim(getattr(p, f.name)), dtype="float64")
+        for f in dataclasses.fields(Params)
+    }
+
+
+def _compile(tb, grid, p, mode):
+    import pytensor
+    import pytensor.tensor as pt
+
+    sym = _symbolic(p)
+    pred = predict(tb, grid, Params(**sym), xp=pt)
+    outs = [getattr(pred, n) for n in _OUTPUTS]
+    outs.append(with_episode(pred.keratin0, pred.keratin_e, sym["gamma"], xp=pt))
+    outs.append(with_episode(pred.blood0, pred.blood_e, sym["gamma"], xp=pt))
+    fn = pytensor.function(list(sym.values()), outs, mode=mode, on_unused_input="raise")
+    return fn, sym, pred
+
+
+def _check_same_numbers(sim, mode):
+    s, tb, grid = sim
+    p = s.params
+    fn, _, _ = _compile(tb, grid, p, mode)
+    got = fn(*[getattr(p, f.name) for f in dataclasses.fields(Params)])
+    ref = predict(tb, grid, p)
+    want = [getattr(ref, n) for n in _OUTPUTS]
+    want.append(with_episode(ref.keratin0, ref.keratin_e, p.gamma))
+    want.append(with_episode(ref.blood0, ref.blood_e, p.gamma))
+    for name, g, w in zip(_OUTPUTS + ("keratin", "blood"), got, want, strict=True):
+        assert g.shape == w.shape, name
+        np.testing.assert_allclose(g, w, rtol=1e-12, atol=1e-12, err_msg=name)
+
+
+def test_pytensor_graph_gives_numpy_numbers(sim):
+    # FAST_COMPILE runs the PyTensor graph with each op's own implementation and compiles in
+    # about a second; a cold C or numba build of the same graph takes one to two minutes.
+    pytest.importorskip("pytensor")
+    _check_same_numbers(sim, "FAST_COMPILE")
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("mode", ["NUMBA", None])
+def test_pytensor_compiled_backends_give_numpy_numbers(sim, mode):
+    pytest.importorskip("numba" if mode == "NUMBA" else "pytensor")
+    _check_same_numbers(sim, mode)
+
+
+def test_pytensor_gradient_matches_finite_differences(sim):
+    # The growth multipliers move the keratin windows, and turnover rates the blood kernels;
+    # NUTS needs both gradients. Compare PyTensor's gradient with central differences of the
+    # NumPy forward model.
+    import pytensor
+    import pytensor.tensor as pt
+
+    s, tb, grid = sim
+    p = s.params
+    rng = np.random.default_rng(0)
+    ck = rng.normal(size=tb.keratin.mask.shape + (2,)) * tb.keratin.mask[..., None]
+    cb = rng.normal(size=tb.blood.mask.shape + (2,)) * tb.blood.mask[..., None]
+
+    def loss(pred, gamma, xp):
+        yk = with_episode(pred.keratin0, pred.keratin_e, gamma, xp=xp)
+        yb = with_episode(pred.blood0, pred.blood_e, gamma, xp=xp)
+        return (yk * ck).sum() + (yb * cb).sum()
+
+    sym = _symbolic(p)
+    lsym = loss(predict(tb, grid, Params(**sym), xp=pt), sym["gamma"], pt)
+    grads = pt.grad(lsym, [sym["growth"], sym["rate"]])
+    fn = pytensor.function(list(sym.values()), grads, mode="FAST_COMPILE", on_unused_input="ignore")
+    g_growth, g_rate = fn(*[getattr(p, f.name) for f in dataclasses.fields(Params)])
+
+    def numeric(name, x0, eps):
+        out = np.zeros_like(x0)
+        for idx in np.ndindex(x0.shape):
+            vals = []
+            for sign in (1.0, -1.0):
+                x = x0.copy()
+                x[idx] += sign * eps
+                q = dataclasses.replace(p, **{name: x})
+                vals.append(loss(predict(tb, grid, q), q.gamma, np))
+            out[idx] = (vals[0] - vals[1]) / (2 * eps)
+        return out
+
+    n_growth = numeric("growth", p.growth, 1e-6)
+    n_rate = numeric("rate", p.rate, 1e-7)
+    np.testing.assert_allclose(g_growth, n_growth, rtol=1e-5, atol=1e-6)
+    np.testing.assert_allclose(g_rate, n_rate, rtol=1e-5, atol=1e-6)
+    assert np.abs(g_growth).min() > 1e-3  # every animal's windows move with its growth
+    ker = [j for j, c in enumerate(tb.tissue_class) if c == "keratin"]
+    assert np.all(g_rate[ker] == 0) and np.all(np.abs(np.delete(g_rate, ker)) > 1e-3)
