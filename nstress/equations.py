@@ -362,33 +362,67 @@ def rayleigh_fraction_remaining(enrich: Array, epsilon: Array, d0: Array | None 
     return ((1000.0 + d0 + e) / (1000.0 + d0)) ** (1000.0 / eps)
 
 
-def diet_path(baseline: Array, steps: Array, walk_basis: np.ndarray, xp: ModuleType = np) -> Array:
-    """Diet signal on the bins: a level plus a random walk on coarse knots.
+def anchored_walk_matrix(n_knots: int, anchor: np.ndarray) -> np.ndarray:
+    """Matrices A with knot values V = level + A @ z for a walk anchored at knot ``anchor``.
 
-    D(t) = b + Σ_k M[t, k]·z_k, with M = B·L the knot (hat) basis times the
-    cumulative-sum matrix, so the walk is one matrix product.
+    The walk is 0 at the anchor knot (chosen inside the data, so that the
+    level is identified by the data rather than by the far end of the walk),
+    cumulative sums of the increments after it and minus the cumulative sums
+    before it: for k > a, V_k − V_a = Σ_{a≤j<k} z_j; for k < a,
+    V_k − V_a = −Σ_{k≤j<a} z_j. A random walk as one matrix product.
+
+    Parameters
+    ----------
+    n_knots
+        K.
+    anchor
+        ``(I,)`` anchor knot per individual.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``(I, K, K − 1)``.
+    """
+    a = np.asarray(anchor, dtype=int)[:, None, None]
+    k = np.arange(n_knots)[None, :, None]
+    j = np.arange(n_knots - 1)[None, None, :]
+    after = (k > a) & (j >= a) & (j < k)
+    before = (k < a) & (j >= k) & (j < a)
+    return after.astype(float) - before.astype(float)
+
+
+def diet_path(
+    baseline: Array, steps: Array, walk: np.ndarray, basis: np.ndarray, xp: ModuleType = np
+) -> tuple[Array, Array]:
+    """Diet signal: a level plus a Gaussian random walk on coarse knots.
+
+    V = b + A·z at the knots (:func:`anchored_walk_matrix`), and
+    D(t) = Σ_k B[t, k]·V_k on the bins, B the hat basis (:func:`knot_basis`).
 
     Parameters
     ----------
     baseline
-        ``(I, 2)`` level b at the first knot (‰).
+        ``(I, 2)`` level b at the anchor knot (‰).
     steps
         ``(I, K − 1, 2)`` increments z between consecutive knots (‰).
-    walk_basis
-        ``(T, K − 1)`` matrix M from :func:`walk_basis`.
+    walk
+        ``(I, K, K − 1)`` matrices A.
+    basis
+        ``(T, K)`` hat basis B at the bin centres.
     xp
         Array namespace.
 
     Returns
     -------
-    array
-        ``(I, T, 2)``.
+    tuple
+        Knot values ``(I, K, 2)`` and the path on the bins ``(I, T, 2)``.
     """
     if xp is np:
-        walk = np.einsum("tk,ikc->itc", walk_basis, steps)
-    else:
-        walk = xp.tensordot(steps, walk_basis, axes=[[1], [1]]).dimshuffle(0, 2, 1)
-    return baseline[:, None, :] + walk
+        values = baseline[:, None, :] + np.einsum("ikj,ijc->ikc", walk, steps)
+        return values, np.einsum("tk,ikc->itc", basis, values)
+    values = baseline[:, None, :] + (walk[..., None] * steps[:, None, :, :]).sum(axis=2)
+    path = xp.tensordot(values, basis, axes=[[1], [1]]).dimshuffle(0, 2, 1)
+    return values, path
 
 
 def walk_basis(t: np.ndarray, knots: np.ndarray) -> np.ndarray:

@@ -85,7 +85,12 @@ class InputErrors(InputError):
         if len(self.errors) > limit:
             lines.append(f"... and {len(self.errors) - limit} more")
         NstressError.__init__(self, f"{len(self.errors)} input error(s):\n  " + "\n  ".join(lines))
-        self.file, self.row, self.column, self.value = first.file, first.row, first.column, first.value
+        self.file, self.row, self.column, self.value = (
+            first.file,
+            first.row,
+            first.column,
+            first.value,
+        )
         self.detail = first.detail
 
 

@@ -25,7 +25,9 @@ class GrowthModel:
 
     name = "base"
 
-    def days_before(self, x_mm: np.ndarray, total_mm: np.ndarray | float | None = None) -> np.ndarray:
+    def days_before(
+        self, x_mm: np.ndarray, total_mm: np.ndarray | float | None = None
+    ) -> np.ndarray:
         """Nominal days before collection at which position ``x_mm`` grew.
 
         Parameters
@@ -38,7 +40,9 @@ class GrowthModel:
         """
         raise NotImplementedError
 
-    def position_at(self, days: np.ndarray, total_mm: np.ndarray | float | None = None) -> np.ndarray:
+    def position_at(
+        self, days: np.ndarray, total_mm: np.ndarray | float | None = None
+    ) -> np.ndarray:
         """Inverse of :meth:`days_before`: position (mm) that grew ``days`` before collection."""
         raise NotImplementedError
 
@@ -100,7 +104,9 @@ class VonBertalanffyGrowth(GrowthModel):
         x = np.asarray(x_mm, dtype=float)
         total = self._total(x, total_mm)
         remaining = np.clip(total - x, 0.0, None)
-        return (np.log1p(-remaining / self.l_inf_mm) - np.log1p(-total / self.l_inf_mm)) / self.k_per_day
+        return (
+            np.log1p(-remaining / self.l_inf_mm) - np.log1p(-total / self.l_inf_mm)
+        ) / self.k_per_day
 
     def position_at(self, days, total_mm=None):  # noqa: D102
         d = np.asarray(days, dtype=float)
@@ -146,5 +152,6 @@ def make_growth(name: str, rate_mm_per_day: float, params: dict | None = None) -
                 f"von Bertalanffy growth needs {exc.args[0]!r}", key=f"growth_params.{exc.args[0]}"
             ) from None
     raise ConfigError(
-        f"unknown growth model {name!r}; expected one of {sorted(GROWTH_MODELS)}", key="growth_model"
+        f"unknown growth model {name!r}; expected one of {sorted(GROWTH_MODELS)}",
+        key="growth_model",
     )

@@ -103,7 +103,9 @@ class Tissue:
 
 
 _KERATIN_CN = "keratin C:N 2.9-3.8 (from memory); collagen 2.9-3.6 (DeNiro 1985)"
-_BLOOD_CN = "blood C:N 3.0-4.2 (from memory); plasma C:N rises with lipid in fasts (Cherel et al. 2005)"
+_BLOOD_CN = (
+    "blood C:N 3.0-4.2 (from memory); plasma C:N rises with lipid in fasts (Cherel et al. 2005)"
+)
 
 DEFAULT_TISSUES: dict[str, Tissue] = {
     "whisker": Tissue(
@@ -165,7 +167,11 @@ DEFAULT_TISSUES: dict[str, Tissue] = {
         disc_d13C=2.5,
         growth_mm_per_day=0.45,
         growth_sd_log=0.2,
-        sources={"growth": "15-25 cm per year (from memory)", "disc": "from memory", "cn": _KERATIN_CN},
+        sources={
+            "growth": "15-25 cm per year (from memory)",
+            "disc": "from memory",
+            "cn": _KERATIN_CN,
+        },
     ),
     "plasma": Tissue(
         "plasma",
@@ -205,7 +211,8 @@ DEFAULT_TISSUES: dict[str, Tissue] = {
         disc_d13C=1.3,
         cn_range=(3.0, 4.2),
         sources={
-            "half_life": "red cells ≈32 d (Hahn et al. 2012); residence 21-31 d (Tsahar et al. 2008)",
+            "half_life": "red cells ≈32 d (Hahn et al. 2012); "
+            "residence 21-31 d (Tsahar et al. 2008)",
             "disc": "fur seal RBC Δ15N +4.1, Δ13C +1.3 (Kurle 2002)",
             "cn": _BLOOD_CN,
         },

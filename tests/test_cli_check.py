@@ -58,7 +58,12 @@ def test_out_writes_ledger_atomically(good, tmp_path, capsys, no_prep):
     assert sorted(p.name for p in out_dir.iterdir()) == ["ledger.csv"]  # no temporary left
     led = pd.read_csv(out_dir / "ledger.csv", keep_default_na=False)
     assert list(led.columns[:6]) == [
-        "source_file", "source_row", "individual", "tissue", "status", "reason"
+        "source_file",
+        "source_row",
+        "individual",
+        "tissue",
+        "status",
+        "reason",
     ]
     assert led["source_row"].tolist() == [1, 2, 3, 4, 5, 6]
     assert led["status"].tolist() == ["used", "used", "used", "excluded", "used", "flagged"]
@@ -78,16 +83,18 @@ def test_quiet_and_verbose(good, capsys, no_prep):
 
 def test_two_tables(good, tmp_path, capsys, no_prep):
     other = tmp_path / "other.csv"
-    other.write_text("individual,tissue,d15N,d13C,date\nR1,rbc,11,-20,2021-01-01\n",
-                     encoding="utf-8")
+    other.write_text(
+        "individual,tissue,d15N,d13C,date\nR1,rbc,11,-20,2021-01-01\n", encoding="utf-8"
+    )
     assert cli.main(["check", str(good), str(other)]) == 0
     assert "Input: 2 file(s), 7 row(s)" in capsys.readouterr().out
 
 
 def test_only_reference_rows_is_not_usable(tmp_path, capsys, no_prep):
     p = tmp_path / "refs.csv"
-    p.write_text("individual,tissue,d15N,d13C,reference_material\n,,-4.52,-26.39,USGS40\n",
-                 encoding="utf-8")
+    p.write_text(
+        "individual,tissue,d15N,d13C,reference_material\n,,-4.52,-26.39,USGS40\n", encoding="utf-8"
+    )
     out_dir = tmp_path / "o"
     assert cli.main(["check", str(p), "--out", str(out_dir)]) == 2
     cap = capsys.readouterr()
@@ -98,8 +105,9 @@ def test_only_reference_rows_is_not_usable(tmp_path, capsys, no_prep):
 
 def test_input_error_message_no_traceback_nothing_written(tmp_path, capsys, no_prep):
     p = tmp_path / "bad.csv"
-    p.write_text("individual,tissue,d15N,d13C,date\nA,plasma,twelve,-18,2021-01-01\n",
-                 encoding="utf-8")
+    p.write_text(
+        "individual,tissue,d15N,d13C,date\nA,plasma,twelve,-18,2021-01-01\n", encoding="utf-8"
+    )
     out_dir = tmp_path / "o"
     assert cli.main(["check", str(p), "--out", str(out_dir)]) == 2
     err = capsys.readouterr().err
@@ -127,8 +135,9 @@ def test_help_usage_and_no_command(capsys):
 def test_commands_are_registered():
     assert "check" in cli.COMMANDS
     seen = []
-    cmd = cli.Command("hello", "say hello", lambda p: p.add_argument("--name"),
-                      lambda a: seen.append(a.name) or 0)
+    cmd = cli.Command(
+        "hello", "say hello", lambda p: p.add_argument("--name"), lambda a: seen.append(a.name) or 0
+    )
     cli.register(cmd)
     try:
         assert cli.main(["hello", "--name", "x"]) == 0
@@ -175,12 +184,22 @@ def test_real_prep_if_present(good, capsys):
 
 def test_python_dash_m(good):
     env = {**os.environ, "PYTHONPATH": str(Path(cli.__file__).parents[2])}
-    res = subprocess.run([sys.executable, "-m", "nstress", "check", str(good), "--quiet"],
-                         capture_output=True, text=True, env=env, timeout=120)
+    res = subprocess.run(
+        [sys.executable, "-m", "nstress", "check", str(good), "--quiet"],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+    )
     assert res.returncode == 0, res.stderr
     bad = good.with_name("bad.txt")
     bad.write_text("", encoding="utf-8")
-    res = subprocess.run([sys.executable, "-m", "nstress", "check", str(bad)],
-                         capture_output=True, text=True, env=env, timeout=120)
+    res = subprocess.run(
+        [sys.executable, "-m", "nstress", "check", str(bad)],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+    )
     assert res.returncode == 2
     assert "nstress: error:" in res.stderr and "Traceback" not in res.stderr

@@ -347,6 +347,19 @@ def test_interpolate_knots_equals_hat_basis_and_numpy_interp():
 # --------------------------------------------------------------------------
 # diet path pieces
 # --------------------------------------------------------------------------
+def test_anchored_walk_is_zero_at_anchor_and_cumulative():
+    rng = np.random.default_rng(5)
+    K = 7
+    z = rng.normal(size=(3, K - 1, 2))
+    anchor = np.array([0, 3, 6])
+    A = eq.anchored_walk_matrix(K, anchor)
+    v = np.einsum("ikj,ijc->ikc", A, z)
+    full = np.concatenate([np.zeros((3, 1, 2)), np.cumsum(z, axis=1)], axis=1)
+    expect = full - full[np.arange(3), anchor][:, None, :]
+    np.testing.assert_allclose(v, expect, atol=1e-12)
+    np.testing.assert_allclose(v[np.arange(3), anchor], 0.0)
+
+
 def test_walk_basis_is_cumulative_sum_at_knots():
     knots = np.array([0.0, 10.0, 20.0, 30.0])
     z = np.array([0.5, -1.0, 2.0])

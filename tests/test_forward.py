@@ -34,9 +34,10 @@ def sim():
 
 
 def _knot_values(p: Params, grid) -> np.ndarray:
-    """(I, K, 2) diet at the knots: baseline + cumulative walk (0 at the first knot)."""
+    """(I, K, 2) diet at the knots: baseline + cumulative walk, 0 at each animal's anchor knot."""
     walk = np.concatenate([np.zeros_like(p.steps[:, :1]), np.cumsum(p.steps, axis=1)], axis=1)
-    return p.baseline[:, None, :] + walk
+    at_anchor = walk[np.arange(walk.shape[0]), grid.anchor][:, None, :]
+    return p.baseline[:, None, :] + walk - at_anchor
 
 
 def _windows(tb, growth):
@@ -154,7 +155,8 @@ def test_keratin_windows_follow_growth(sim):
         )
         y = predict(tb, grid, p).keratin0 - p.disc[k.tissue]
         age = k.t - 0.5 * (k.h_lo + k.h_hi) / r  # window centre
-        expected = p.baseline[:, None, :] + 0.05 * age[..., None] / grid.spacing
+        anchor_t = grid.knots[grid.anchor][:, None, None]
+        expected = p.baseline[:, None, :] + 0.05 * (age[..., None] - anchor_t) / grid.spacing
         inside = k.mask & (k.t - k.h_hi / r >= 0)
         np.testing.assert_allclose(y[inside], expected[inside], atol=1e-10)
 

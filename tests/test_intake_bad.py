@@ -37,8 +37,9 @@ class Case:
 def _ratio_table() -> str:
     rows = []
     for i, (n, c) in enumerate([(12.3, -18.2), (14.0, -17.1), (9.8, -21.5)]):
-        rows.append(f"A,plasma,{R_AIR * (1 + n / 1000):.7f},{R_VPDB * (1 + c / 1000):.7f},"
-                    f"2021-01-0{i + 1}")
+        rows.append(
+            f"A,plasma,{R_AIR * (1 + n / 1000):.7f},{R_VPDB * (1 + c / 1000):.7f},2021-01-0{i + 1}"
+        )
     return B + "\n".join(rows) + "\n"
 
 
@@ -46,98 +47,263 @@ CASES = [
     Case("empty file", "", r"file is empty", cli=True),
     Case("blank lines only", "\n  \n\n", r"file is empty"),
     Case("header only", B, r"header but no data rows", row=None, cli=True),
-    Case("missing individual", "tissue,d15N,d13C,date\nplasma,12,-18,2021-01-01\n",
-         r"required column 'individual' is missing", column="individual", cli=True),
-    Case("missing tissue", "individual,d15N,d13C,date\nA,12,-18,2021-01-01\n",
-         r"required column 'tissue' is missing", column="tissue"),
-    Case("no isotope columns", "individual,tissue,date\nA,plasma,2021-01-01\n",
-         r"no d15N or d13C column", column="d15N"),
-    Case("isotopes empty in all rows", B + "A,plasma,,,2021-01-01\nB,plasma,NA,NA,2021-01-01\n",
-         r"no row has a d15N or d13C value", column="d15N", cli=True),
-    Case("text in numeric", B + "A,plasma,12,-18,2021-01-01\nA,plasma,abc,-18,2021-01-02\n",
-         r"row 2, column 'd15N': expected a number \(value 'abc'\)", row=2, column="d15N",
-         cli=True),
-    Case("decimal comma in comma file", B + 'A,plasma,"12,5",-18,2021-01-01\n',
-         r"'\.' as decimal mark", row=1, column="d15N"),
-    Case("infinite value", B + "A,plasma,inf,-18,2021-01-01\n", r"expected a number",
-         row=1, column="d15N"),
-    Case("impossible date", B + "A,plasma,12,-18,2021-02-30\n",
-         r"row 1, column 'date': impossible date.*'2021-02-30'", row=1, column="date", cli=True),
-    Case("mixed date formats", B + "A,plasma,12,-18,2021-03-01\nA,plasma,12,-18,03/04/2021\n",
-         r"mixed date formats.*ISO 8601", row=2, column="date", cli=True),
-    Case("non-ISO dates", B + "A,plasma,12,-18,04.03.2021\n",
-         r"expected an ISO 8601 date \(YYYY-MM-DD\)", row=1, column="date"),
-    Case("bad clock time", B + "A,plasma,12,-18,2021-03-04T25:00\n",
-         r"expected an ISO 8601 date", row=1, column="date"),
-    Case("negative position", K + "W,whisker,12,-18,-3,2021-03-04\n",
-         r"column 'position_mm': expected a distance >= 0 mm", row=1, column="position_mm",
-         cli=True),
-    Case("zero segment length",
-         K.strip() + ",segment_length_mm\nW,whisker,12,-18,3,2021-03-04,0\n",
-         r"segment length > 0", row=1, column="segment_length_mm"),
-    Case("negative SD", B.strip() + ",sd_d15N\nA,plasma,12,-18,2021-01-01,-0.1\n",
-         r"column 'sd_d15N': expected an analytical SD > 0", row=1, column="sd_d15N", cli=True),
-    Case("zero SD", B.strip() + ",sd_d13C\nA,plasma,12,-18,2021-01-01,0\n",
-         r"analytical SD > 0", row=1, column="sd_d13C"),
-    Case("pct over 100", B.strip() + ",pct_C\nA,plasma,12,-18,2021-01-01,145\n",
-         r"mass percentage 0-100", row=1, column="pct_C"),
-    Case("unknown tissue", B + "A,bone,12,-18,2021-01-01\n",
-         r"unknown tissue; expected one of: baleen, claw, feather, hair, plasma, rbc, serum, "
-         r"whisker, whole_blood", row=1, column="tissue", cli=True),
-    Case("empty tissue", B + "A,,12,-18,2021-01-01\n", r"tissue is empty", row=1,
-         column="tissue"),
-    Case("empty individual", B + ",plasma,12,-18,2021-01-01\n", r"individual is empty",
-         row=1, column="individual"),
-    Case("keratin without collected",
-         "individual,tissue,d15N,d13C,position_mm\nW,whisker,12,-18,3\n",
-         r"required column 'collected' is missing: keratin rows need", column="collected",
-         cli=True),
-    Case("keratin without position", "individual,tissue,d15N,d13C,collected\n"
-         "W,whisker,12,-18,2021-03-04\n", r"required column 'position_mm' is missing",
-         column="position_mm"),
-    Case("keratin row with empty position", K + "W,whisker,12,-18,,2021-03-04\n",
-         r"row 1, column 'position_mm': keratin rows need the distance", row=1,
-         column="position_mm"),
-    Case("blood without date", "individual,tissue,d15N,d13C\nA,plasma,12,-18\n",
-         r"required column 'date' is missing: blood rows need", column="date", cli=True),
-    Case("blood row with empty date", B + "A,rbc,12,-18,\n", r"blood rows need the ISO date",
-         row=1, column="date"),
-    Case("junk boolean", B.strip() + ",lipid_extracted\nA,plasma,12,-18,2021-01-01,maybe\n",
-         r"column 'lipid_extracted': expected true or false.*'maybe'", row=1,
-         column="lipid_extracted", cli=True),
-    Case("beyond 100 per mil", B + "A,plasma,12,-180.5,2021-01-01\n",
-         r"\|d13C\| > 100 ‰ is beyond natural abundance", row=1, column="d13C", cli=True),
-    Case("d13C as fractions", B + "A,plasma,12,-0.018,2021-01-01\nA,plasma,12,-0.021,2021-01-02\n",
-         r"d13C'.*look like fractions.*expected per-mil d13C values", row=1, column="d13C",
-         cli=True),
-    Case("both as fractions", B + "A,plasma,0.012,-0.018,2021-01-01\n",
-         r"d15N'.*look like fractions", row=1, column="d15N"),
-    Case("isotope ratios", _ratio_table(), r"look like 15N/14N isotope ratios.*per-mil",
-         row=1, column="d15N", cli=True),
-    Case("conflicting duplicate sample_id", B.strip() + ",sample_id\n"
-         "A,plasma,12,-18,2021-01-01,S7\nA,plasma,13.4,-18,2021-01-01,S7\n",
-         r"row 2, column 'sample_id': sample_id also on row 1 with different d15N: a duplicated "
-         r"row with conflicting values", row=2, column="sample_id", cli=True),
-    Case("duplicate sample_id, other individual", B.strip() + ",sample_id\n"
-         "A,plasma,12,-18,2021-01-01,S7\nB,plasma,12,-18,2021-01-01,S7\n",
-         r"with different individual: a duplicated row", row=2, column="sample_id"),
-    Case("bad reference role", B.strip() + ",reference_material,reference_role\n"
-         ",,-4.5,-26.4,,USGS40,standard\nA,plasma,12,-18,2021-01-01,,\n",
-         r"expected 'anchor', 'check' or empty", row=1, column="reference_role"),
-    Case("ragged rows", B + "A,plasma,12,-18,2021-01-01,extra,fields\n",
-         r"cannot parse as comma-separated text.*same number of fields", cli=True),
-    Case("clashing headers",
-         "individual,tissue,d15N,δ15N (‰),d13C,date\nA,plasma,1,2,-18,2021-01-01\n",
-         r"header 'δ15N \(‰\)' clashes with header 'd15N'", row=0, column="d15N"),
-    Case("repeated header",
-         "individual,tissue,d15N,d13C,date,note,note\nA,plasma,1,-18,2021-01-01,x,y\n",
-         r"header 'note' clashes.*appears twice"),
+    Case(
+        "missing individual",
+        "tissue,d15N,d13C,date\nplasma,12,-18,2021-01-01\n",
+        r"required column 'individual' is missing",
+        column="individual",
+        cli=True,
+    ),
+    Case(
+        "missing tissue",
+        "individual,d15N,d13C,date\nA,12,-18,2021-01-01\n",
+        r"required column 'tissue' is missing",
+        column="tissue",
+    ),
+    Case(
+        "no isotope columns",
+        "individual,tissue,date\nA,plasma,2021-01-01\n",
+        r"no d15N or d13C column",
+        column="d15N",
+    ),
+    Case(
+        "isotopes empty in all rows",
+        B + "A,plasma,,,2021-01-01\nB,plasma,NA,NA,2021-01-01\n",
+        r"no row has a d15N or d13C value",
+        column="d15N",
+        cli=True,
+    ),
+    Case(
+        "text in numeric",
+        B + "A,plasma,12,-18,2021-01-01\nA,plasma,abc,-18,2021-01-02\n",
+        r"row 2, column 'd15N': expected a number \(value 'abc'\)",
+        row=2,
+        column="d15N",
+        cli=True,
+    ),
+    Case(
+        "decimal comma in comma file",
+        B + 'A,plasma,"12,5",-18,2021-01-01\n',
+        r"'\.' as decimal mark",
+        row=1,
+        column="d15N",
+    ),
+    Case(
+        "infinite value",
+        B + "A,plasma,inf,-18,2021-01-01\n",
+        r"expected a number",
+        row=1,
+        column="d15N",
+    ),
+    Case(
+        "impossible date",
+        B + "A,plasma,12,-18,2021-02-30\n",
+        r"row 1, column 'date': impossible date.*'2021-02-30'",
+        row=1,
+        column="date",
+        cli=True,
+    ),
+    Case(
+        "mixed date formats",
+        B + "A,plasma,12,-18,2021-03-01\nA,plasma,12,-18,03/04/2021\n",
+        r"mixed date formats.*ISO 8601",
+        row=2,
+        column="date",
+        cli=True,
+    ),
+    Case(
+        "non-ISO dates",
+        B + "A,plasma,12,-18,04.03.2021\n",
+        r"expected an ISO 8601 date \(YYYY-MM-DD\)",
+        row=1,
+        column="date",
+    ),
+    Case(
+        "bad clock time",
+        B + "A,plasma,12,-18,2021-03-04T25:00\n",
+        r"expected an ISO 8601 date",
+        row=1,
+        column="date",
+    ),
+    Case(
+        "negative position",
+        K + "W,whisker,12,-18,-3,2021-03-04\n",
+        r"column 'position_mm': expected a distance >= 0 mm",
+        row=1,
+        column="position_mm",
+        cli=True,
+    ),
+    Case(
+        "zero segment length",
+        K.strip() + ",segment_length_mm\nW,whisker,12,-18,3,2021-03-04,0\n",
+        r"segment length > 0",
+        row=1,
+        column="segment_length_mm",
+    ),
+    Case(
+        "negative SD",
+        B.strip() + ",sd_d15N\nA,plasma,12,-18,2021-01-01,-0.1\n",
+        r"column 'sd_d15N': expected an analytical SD > 0",
+        row=1,
+        column="sd_d15N",
+        cli=True,
+    ),
+    Case(
+        "zero SD",
+        B.strip() + ",sd_d13C\nA,plasma,12,-18,2021-01-01,0\n",
+        r"analytical SD > 0",
+        row=1,
+        column="sd_d13C",
+    ),
+    Case(
+        "pct over 100",
+        B.strip() + ",pct_C\nA,plasma,12,-18,2021-01-01,145\n",
+        r"mass percentage 0-100",
+        row=1,
+        column="pct_C",
+    ),
+    Case(
+        "unknown tissue",
+        B + "A,bone,12,-18,2021-01-01\n",
+        r"unknown tissue; expected one of: baleen, claw, feather, hair, plasma, rbc, serum, "
+        r"whisker, whole_blood",
+        row=1,
+        column="tissue",
+        cli=True,
+    ),
+    Case("empty tissue", B + "A,,12,-18,2021-01-01\n", r"tissue is empty", row=1, column="tissue"),
+    Case(
+        "empty individual",
+        B + ",plasma,12,-18,2021-01-01\n",
+        r"individual is empty",
+        row=1,
+        column="individual",
+    ),
+    Case(
+        "keratin without collected",
+        "individual,tissue,d15N,d13C,position_mm\nW,whisker,12,-18,3\n",
+        r"required column 'collected' is missing: keratin rows need",
+        column="collected",
+        cli=True,
+    ),
+    Case(
+        "keratin without position",
+        "individual,tissue,d15N,d13C,collected\nW,whisker,12,-18,2021-03-04\n",
+        r"required column 'position_mm' is missing",
+        column="position_mm",
+    ),
+    Case(
+        "keratin row with empty position",
+        K + "W,whisker,12,-18,,2021-03-04\n",
+        r"row 1, column 'position_mm': keratin rows need the distance",
+        row=1,
+        column="position_mm",
+    ),
+    Case(
+        "blood without date",
+        "individual,tissue,d15N,d13C\nA,plasma,12,-18\n",
+        r"required column 'date' is missing: blood rows need",
+        column="date",
+        cli=True,
+    ),
+    Case(
+        "blood row with empty date",
+        B + "A,rbc,12,-18,\n",
+        r"blood rows need the ISO date",
+        row=1,
+        column="date",
+    ),
+    Case(
+        "junk boolean",
+        B.strip() + ",lipid_extracted\nA,plasma,12,-18,2021-01-01,maybe\n",
+        r"column 'lipid_extracted': expected true or false.*'maybe'",
+        row=1,
+        column="lipid_extracted",
+        cli=True,
+    ),
+    Case(
+        "beyond 100 per mil",
+        B + "A,plasma,12,-180.5,2021-01-01\n",
+        r"\|d13C\| > 100 ‰ is beyond natural abundance",
+        row=1,
+        column="d13C",
+        cli=True,
+    ),
+    Case(
+        "d13C as fractions",
+        B + "A,plasma,12,-0.018,2021-01-01\nA,plasma,12,-0.021,2021-01-02\n",
+        r"d13C'.*look like fractions.*expected per-mil d13C values",
+        row=1,
+        column="d13C",
+        cli=True,
+    ),
+    Case(
+        "both as fractions",
+        B + "A,plasma,0.012,-0.018,2021-01-01\n",
+        r"d15N'.*look like fractions",
+        row=1,
+        column="d15N",
+    ),
+    Case(
+        "isotope ratios",
+        _ratio_table(),
+        r"look like 15N/14N isotope ratios.*per-mil",
+        row=1,
+        column="d15N",
+        cli=True,
+    ),
+    Case(
+        "conflicting duplicate sample_id",
+        B.strip() + ",sample_id\nA,plasma,12,-18,2021-01-01,S7\nA,plasma,13.4,-18,2021-01-01,S7\n",
+        r"row 2, column 'sample_id': sample_id also on row 1 with different d15N: a duplicated "
+        r"row with conflicting values",
+        row=2,
+        column="sample_id",
+        cli=True,
+    ),
+    Case(
+        "duplicate sample_id, other individual",
+        B.strip() + ",sample_id\nA,plasma,12,-18,2021-01-01,S7\nB,plasma,12,-18,2021-01-01,S7\n",
+        r"with different individual: a duplicated row",
+        row=2,
+        column="sample_id",
+    ),
+    Case(
+        "bad reference role",
+        B.strip() + ",reference_material,reference_role\n"
+        ",,-4.5,-26.4,,USGS40,standard\nA,plasma,12,-18,2021-01-01,,\n",
+        r"expected 'anchor', 'check' or empty",
+        row=1,
+        column="reference_role",
+    ),
+    Case(
+        "ragged rows",
+        B + "A,plasma,12,-18,2021-01-01,extra,fields\n",
+        r"cannot parse as comma-separated text.*same number of fields",
+        cli=True,
+    ),
+    Case(
+        "clashing headers",
+        "individual,tissue,d15N,δ15N (‰),d13C,date\nA,plasma,1,2,-18,2021-01-01\n",
+        r"header 'δ15N \(‰\)' clashes with header 'd15N'",
+        row=0,
+        column="d15N",
+    ),
+    Case(
+        "repeated header",
+        "individual,tissue,d15N,d13C,date,note,note\nA,plasma,1,-18,2021-01-01,x,y\n",
+        r"header 'note' clashes.*appears twice",
+    ),
     Case("unknown extension", "a,b\n1,2\n", r"unknown file type '\.json'", name="t.json", cli=True),
     Case("no extension", "a,b\n1,2\n", r"unknown file type '\(no extension\)'", name="table"),
     Case("directory", None, r"cannot read file", name="dir.csv", cli=True),
     Case("corrupt parquet", b"PAR1 not really", r"cannot read as Parquet", name="t.parquet"),
-    Case("corrupt excel", b"PK\x03\x04 broken zip", r"cannot read as an Excel workbook",
-         name="t.xlsx"),
+    Case(
+        "corrupt excel",
+        b"PK\x03\x04 broken zip",
+        r"cannot read as an Excel workbook",
+        name="t.xlsx",
+    ),
 ]
 
 
@@ -196,8 +362,10 @@ def test_bad_table_through_cli(case: Case, tmp_path: Path, capsys, monkeypatch):
 
 def test_errors_are_gathered_in_one_message(tmp_path):
     p = tmp_path / "many.csv"
-    p.write_text(B + "A,plasma,abc,-18,2021-01-01\nA,bone,12,-18,2021-02-30\n"
-                 "A,plasma,12,-18,2021-01-03\n", encoding="utf-8")
+    p.write_text(
+        B + "A,plasma,abc,-18,2021-01-01\nA,bone,12,-18,2021-02-30\nA,plasma,12,-18,2021-01-03\n",
+        encoding="utf-8",
+    )
     with pytest.raises(InputErrors, match=r"^3 input error\(s\)") as info:
         read_samples(p)
     rows = [(e.row, e.column) for e in info.value.errors]
@@ -206,8 +374,9 @@ def test_errors_are_gathered_in_one_message(tmp_path):
 
 def test_many_bad_rows_are_counted_not_all_spelled_out(tmp_path):
     p = tmp_path / "bad.csv"
-    p.write_text(B + "".join(f"A,plasma,x{i},-18,2021-01-01\n" for i in range(30)),
-                 encoding="utf-8")
+    p.write_text(
+        B + "".join(f"A,plasma,x{i},-18,2021-01-01\n" for i in range(30)), encoding="utf-8"
+    )
     with pytest.raises(InputErrors, match=r"20 more row\(s\) with the same problem") as info:
         read_samples(p)
     assert len(info.value.errors) == 11

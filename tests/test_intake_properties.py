@@ -52,8 +52,16 @@ def tables(draw):
                     }
                 )
         if draw(st.booleans()):  # a row without isotope values
-            rows.append({**rows[-1], "d15N": "", "d13C": "NA", "_sample": None, "_empty": True,
-                         "comment": f"c{len(rows)}"})
+            rows.append(
+                {
+                    **rows[-1],
+                    "d15N": "",
+                    "d13C": "NA",
+                    "_sample": None,
+                    "_empty": True,
+                    "comment": f"c{len(rows)}",
+                }
+            )
     table = pd.DataFrame(rows)
     table["sample_id"] = [f"S{k}" for k in range(len(table))]
     keep_optional = [c for c in OPTIONAL if draw(st.booleans())]
@@ -62,8 +70,13 @@ def tables(draw):
     order = draw(st.permutations(columns))
     row_order = draw(st.permutations(list(range(len(table)))))
     table = table.iloc[list(row_order)].reset_index(drop=True)
-    cases = draw(st.lists(st.sampled_from(["lower", "upper", "title", "same"]),
-                          min_size=len(order), max_size=len(order)))
+    cases = draw(
+        st.lists(
+            st.sampled_from(["lower", "upper", "title", "same"]),
+            min_size=len(order),
+            max_size=len(order),
+        )
+    )
     pad = draw(st.sampled_from(["", " ", "  "]))
     return table, list(order), cases, pad
 
@@ -77,8 +90,12 @@ def _header(name: str, how: str, pad: str) -> str:
 @given(tables())
 def test_layout_does_not_matter(spec):
     table, order, cases, pad = spec
-    out = pd.DataFrame({_header(c, h, pad): table[c].map(lambda v: f"{pad}{v}{pad}")
-                        for c, h in zip(order, cases, strict=True)})
+    out = pd.DataFrame(
+        {
+            _header(c, h, pad): table[c].map(lambda v: f"{pad}{v}{pad}")
+            for c, h in zip(order, cases, strict=True)
+        }
+    )
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "t.csv"
         out.to_csv(path, index=False)

@@ -72,14 +72,22 @@ def test_public_api_and_columns(tmp_path):
     led = ledger_of(intake)
     assert led["status"].tolist() == ["used", "used"]
     assert list(led.columns[:6]) == [
-        "source_file", "source_row", "individual", "tissue", "status", "reason"
+        "source_file",
+        "source_row",
+        "individual",
+        "tissue",
+        "status",
+        "reason",
     ]
     assert "comment" in led.columns
 
 
 def test_default_sd_argument(tmp_path):
-    p = write(tmp_path, "individual,tissue,d15N,d13C,date,sd_d13C\nA,plasma,12,-18,2020-01-01,\n"
-              "A,plasma,12,-18,2020-01-02,0.3\n")
+    p = write(
+        tmp_path,
+        "individual,tissue,d15N,d13C,date,sd_d13C\nA,plasma,12,-18,2020-01-01,\n"
+        "A,plasma,12,-18,2020-01-02,0.3\n",
+    )
     s = read_samples(p, default_sd=0.2).samples
     assert s["sd_d15N"].tolist() == [0.2, 0.2]
     assert s["sd_d13C"].tolist() == [0.2, 0.3]
@@ -131,8 +139,9 @@ def test_compact_keys():
 
 
 def test_bom_latin1_and_tab(tmp_path):
-    body = ("individual\ttissue\td15N\td13C\tdate\tsite\n"
-            "Åsa\tplasma\t10.5\t-20.1\t2020-05-01\tSøndre\n")
+    body = (
+        "individual\ttissue\td15N\td13C\tdate\tsite\nÅsa\tplasma\t10.5\t-20.1\t2020-05-01\tSøndre\n"
+    )
     p1 = write(tmp_path, "\ufeff" + body, "bom.tsv")
     p2 = write(tmp_path, body, "latin.txt", encoding="latin-1")
     a, b = read_samples(p1), read_samples(p2)
@@ -145,8 +154,11 @@ def test_bom_latin1_and_tab(tmp_path):
 
 
 def test_missing_tokens_and_one_isotope_column(tmp_path):
-    p = write(tmp_path, "individual,tissue,d15N,date\nA,plasma,NA,2020-01-01\n"
-              "A,plasma,9.5,2020-01-02\nA,plasma,null,2020-01-03\nA,plasma,-,2020-01-04\nA,plasma,NaN,2020-01-05\n")
+    p = write(
+        tmp_path,
+        "individual,tissue,d15N,date\nA,plasma,NA,2020-01-01\n"
+        "A,plasma,9.5,2020-01-02\nA,plasma,null,2020-01-03\nA,plasma,-,2020-01-04\nA,plasma,NaN,2020-01-05\n",
+    )
     intake = read_samples(p)
     assert intake.samples["d15N"].tolist() == [9.5]
     assert intake.samples["d13C"].isna().all()
@@ -157,30 +169,42 @@ def test_missing_tokens_and_one_isotope_column(tmp_path):
 
 
 def test_datetime_with_time_zone_is_local_calendar_day(tmp_path):
-    p = write(tmp_path, "individual,tissue,d15N,d13C,date\n"
-              "A,plasma,12,-18,2021-03-04T10:00:00+02:00\n"
-              "A,plasma,12,-18,2021-03-05T23:30:00-05:00\n"
-              "A,plasma,12,-18,2021-03-06 08:15\n"
-              "A,plasma,12,-18,2021-03-07T01:00Z\n")
+    p = write(
+        tmp_path,
+        "individual,tissue,d15N,d13C,date\n"
+        "A,plasma,12,-18,2021-03-04T10:00:00+02:00\n"
+        "A,plasma,12,-18,2021-03-05T23:30:00-05:00\n"
+        "A,plasma,12,-18,2021-03-06 08:15\n"
+        "A,plasma,12,-18,2021-03-07T01:00Z\n",
+    )
     d = read_samples(p).samples["date"]
     assert d.dt.strftime("%Y-%m-%d").tolist() == [
-        "2021-03-04", "2021-03-05", "2021-03-06", "2021-03-07"
+        "2021-03-04",
+        "2021-03-05",
+        "2021-03-06",
+        "2021-03-07",
     ]
     assert (d == d.dt.normalize()).all()
 
 
 def test_lipid_extracted_words(tmp_path):
-    p = write(tmp_path, "individual,tissue,d15N,d13C,date,lipid_extracted\n"
-              "A,plasma,12,-18,2021-01-01,Yes\nA,plasma,12,-18,2021-01-02,0\n"
-              "A,plasma,12,-18,2021-01-03,\nA,plasma,12,-18,2021-01-04,TRUE\n")
+    p = write(
+        tmp_path,
+        "individual,tissue,d15N,d13C,date,lipid_extracted\n"
+        "A,plasma,12,-18,2021-01-01,Yes\nA,plasma,12,-18,2021-01-02,0\n"
+        "A,plasma,12,-18,2021-01-03,\nA,plasma,12,-18,2021-01-04,TRUE\n",
+    )
     v = read_samples(p).samples["lipid_extracted"]
     assert v.tolist()[:2] == [True, False]
     assert v.isna().tolist() == [False, False, True, False]
 
 
 def test_group_given_and_extra_reserved_names(tmp_path):
-    p = write(tmp_path, "individual,tissue,d15N,d13C,date,group,status\n"
-              "A,plasma,12,-18,2021-01-01,colonyA,alive\nB,plasma,12,-18,2021-01-01,,dead\n")
+    p = write(
+        tmp_path,
+        "individual,tissue,d15N,d13C,date,group,status\n"
+        "A,plasma,12,-18,2021-01-01,colonyA,alive\nB,plasma,12,-18,2021-01-01,,dead\n",
+    )
     intake = read_samples(p)
     assert intake.samples["group"].tolist() == ["colonyA", "all"]
     assert intake.samples["input_status"].tolist() == ["alive", "dead"]
@@ -188,9 +212,12 @@ def test_group_given_and_extra_reserved_names(tmp_path):
 
 
 def test_tissue_aliases_and_custom_tissue(tmp_path):
-    p = write(tmp_path, "individual,tissue,d15N,d13C,date,position_mm,collected\n"
-              "A,Red blood cells,12,-18,2021-01-01,,\nA,Whole blood,12,-18,2021-01-01,,\n"
-              "A,scute,9,-16,,2,2021-02-02\n")
+    p = write(
+        tmp_path,
+        "individual,tissue,d15N,d13C,date,position_mm,collected\n"
+        "A,Red blood cells,12,-18,2021-01-01,,\nA,Whole blood,12,-18,2021-01-01,,\n"
+        "A,scute,9,-16,,2,2021-02-02\n",
+    )
     tissues = dict(DEFAULT_TISSUES)
     tissues["scute"] = Tissue("scute", "keratin", growth_mm_per_day=0.05)
     s = read_samples(p, tissues).samples
@@ -200,8 +227,11 @@ def test_tissue_aliases_and_custom_tissue(tmp_path):
 
 def test_several_files_keys_and_union_of_columns(tmp_path):
     a = write(tmp_path, KERATIN_HEADER + ",note\nW1,whisker,12,-18,0,2021-03-04,x\n", "a.csv")
-    b = write(tmp_path, "individual,tissue,d15N,d13C,date\nP1,plasma,14,-19,2021-05-05\n"
-              "P1,plasma,,,2021-05-06\n", "b.csv")
+    b = write(
+        tmp_path,
+        "individual,tissue,d15N,d13C,date\nP1,plasma,14,-19,2021-05-05\nP1,plasma,,,2021-05-06\n",
+        "b.csv",
+    )
     intake = read_samples([a, str(b)])
     led = ledger_of(intake)
     assert led.index.tolist() == [0, 1, 2]
@@ -242,12 +272,15 @@ def test_parquet_and_excel_round_trip(tmp_path):
 
 
 def test_empty_rows_and_soft_range_flags(tmp_path):
-    p = write(tmp_path, KERATIN_HEADER + "\n"
-              "W1,whisker,12,-18,0,2021-03-04\n"
-              ",,,,,\n"
-              "W1,whisker,,,2,2021-03-04\n"
-              "W1,whisker,35.2,-18,4,2021-03-04\n"
-              "W1,whisker,12,-2.5,6,2021-03-04\n")
+    p = write(
+        tmp_path,
+        KERATIN_HEADER + "\n"
+        "W1,whisker,12,-18,0,2021-03-04\n"
+        ",,,,,\n"
+        "W1,whisker,,,2,2021-03-04\n"
+        "W1,whisker,35.2,-18,4,2021-03-04\n"
+        "W1,whisker,12,-2.5,6,2021-03-04\n",
+    )
     intake = read_samples(p)
     led = ledger_of(intake)
     assert led["status"].tolist() == ["used", "excluded", "excluded", "flagged", "flagged"]
@@ -260,11 +293,14 @@ def test_empty_rows_and_soft_range_flags(tmp_path):
 def test_reference_rows(tmp_path):
     # USGS40 δ13C -26.39, δ15N -4.52 (Qi et al. 2003); USGS41a δ13C +36.55, δ15N +47.55
     # (Qi et al. 2016): certified values far outside animal-tissue ranges are not flagged.
-    p = write(tmp_path, "individual,tissue,d15N,d13C,date,reference_material,reference_role,"
-              "analysis_batch\n"
-              ",,-4.52,-26.39,,USGS40,anchor,run1\n"
-              ",,47.55,36.55,,USGS41a,anchor,run1\n"
-              "A,plasma,12,-18,2021-01-01,,,run1\n")
+    p = write(
+        tmp_path,
+        "individual,tissue,d15N,d13C,date,reference_material,reference_role,"
+        "analysis_batch\n"
+        ",,-4.52,-26.39,,USGS40,anchor,run1\n"
+        ",,47.55,36.55,,USGS41a,anchor,run1\n"
+        "A,plasma,12,-18,2021-01-01,,,run1\n",
+    )
     intake = read_samples(p)
     refs = intake.references
     assert refs["reference_material"].tolist() == ["USGS40", "USGS41a"]
@@ -290,11 +326,14 @@ def test_reference_value_as_a_sample_is_flagged(tmp_path):
 
 
 def test_replicates_combined_mean_sd_of_mean_and_spread(tmp_path):
-    p = write(tmp_path, KERATIN_HEADER + ",sd_d15N,sample_id\n"
-              "W1,whisker,12.0,-18.0,3,2021-03-04,0.2,a\n"
-              "W1,whisker,12.2,-18.1,3,2021-03-04,0.2,b\n"
-              "W1,whisker,12.1,,3,2021-03-04,0.2,c\n"
-              "W1,whisker,13.0,-17.0,6,2021-03-04,0.2,d\n")
+    p = write(
+        tmp_path,
+        KERATIN_HEADER + ",sd_d15N,sample_id\n"
+        "W1,whisker,12.0,-18.0,3,2021-03-04,0.2,a\n"
+        "W1,whisker,12.2,-18.1,3,2021-03-04,0.2,b\n"
+        "W1,whisker,12.1,,3,2021-03-04,0.2,c\n"
+        "W1,whisker,13.0,-17.0,6,2021-03-04,0.2,d\n",
+    )
     intake = read_samples(p)
     s = intake.samples
     assert len(s) == 2
@@ -317,20 +356,26 @@ def test_replicates_combined_mean_sd_of_mean_and_spread(tmp_path):
 
 def test_replicates_that_disagree_are_flagged(tmp_path):
     # 3·√2·0.15 = 0.636 ‰: a difference of 0.5 passes, 0.7 is flagged (common practice).
-    p = write(tmp_path, KERATIN_HEADER + "\n"
-              "W1,whisker,12.0,-18.0,3,2021-03-04\nW1,whisker,12.5,-18.0,3,2021-03-04\n"
-              "W1,whisker,12.0,-18.0,6,2021-03-04\nW1,whisker,12.0,-18.7,6,2021-03-04\n")
+    p = write(
+        tmp_path,
+        KERATIN_HEADER + "\n"
+        "W1,whisker,12.0,-18.0,3,2021-03-04\nW1,whisker,12.5,-18.0,3,2021-03-04\n"
+        "W1,whisker,12.0,-18.0,6,2021-03-04\nW1,whisker,12.0,-18.7,6,2021-03-04\n",
+    )
     led = ledger_of(read_samples(p))
     assert led["status"].tolist() == ["used", "used", "flagged", "flagged"]
     assert DISAGREE in led["reason"].iloc[2]
 
 
 def test_different_dates_and_lipid_states_are_not_replicates(tmp_path):
-    p = write(tmp_path, "individual,tissue,d15N,d13C,date,position_mm,collected,lipid_extracted\n"
-              "A,plasma,12,-18,2021-01-01,,,\nA,plasma,12,-18,2021-01-02,,,\n"
-              "A,rbc,12,-18,2021-01-01,,,\nB,plasma,12,-18,2021-01-01,,,\n"
-              "W,whisker,12,-18,,3,2021-03-04,true\nW,whisker,12,-18,,3,2021-03-04,false\n"
-              "W,whisker,12,-18,,3,2022-03-04,true\n")
+    p = write(
+        tmp_path,
+        "individual,tissue,d15N,d13C,date,position_mm,collected,lipid_extracted\n"
+        "A,plasma,12,-18,2021-01-01,,,\nA,plasma,12,-18,2021-01-02,,,\n"
+        "A,rbc,12,-18,2021-01-01,,,\nB,plasma,12,-18,2021-01-01,,,\n"
+        "W,whisker,12,-18,,3,2021-03-04,true\nW,whisker,12,-18,,3,2021-03-04,false\n"
+        "W,whisker,12,-18,,3,2022-03-04,true\n",
+    )
     s = read_samples(p).samples
     assert len(s) == 7
     assert (s["n_replicates"] == 1).all()
@@ -338,8 +383,9 @@ def test_different_dates_and_lipid_states_are_not_replicates(tmp_path):
 
 def test_blood_replicates_on_one_day_combine_across_files(tmp_path):
     a = write(tmp_path, "individual,tissue,d15N,d13C,date\nA,plasma,12,-18,2021-01-01\n", "a.csv")
-    b = write(tmp_path, "individual,tissue,d15N,d13C,date\nA,plasma,12.2,-18,2021-01-01T09:00\n",
-              "b.csv")
+    b = write(
+        tmp_path, "individual,tissue,d15N,d13C,date\nA,plasma,12.2,-18,2021-01-01T09:00\n", "b.csv"
+    )
     s = read_samples([a, b]).samples
     assert len(s) == 1 and s["keys"].iloc[0] == (0, 1)
     assert s["d15N"].iloc[0] == pytest.approx(12.1)
@@ -349,10 +395,13 @@ def test_blood_replicates_on_one_day_combine_across_files(tmp_path):
 
 
 def test_exact_duplicate_rows_of_a_sample_id_are_excluded(tmp_path):
-    p = write(tmp_path, KERATIN_HEADER + ",sample_id,comment\n"
-              "W1,whisker,12.0,-18.0,3,2021-03-04,S1,a\n"
-              "W1,whisker,12.00,-18.0,3,2021-03-04,S1,a\n"
-              "W1,whisker,12.0,-18.0,3,2021-03-04,S1,pasted again\n")
+    p = write(
+        tmp_path,
+        KERATIN_HEADER + ",sample_id,comment\n"
+        "W1,whisker,12.0,-18.0,3,2021-03-04,S1,a\n"
+        "W1,whisker,12.00,-18.0,3,2021-03-04,S1,a\n"
+        "W1,whisker,12.0,-18.0,3,2021-03-04,S1,pasted again\n",
+    )
     intake = read_samples(p)
     led = ledger_of(intake)
     assert led["status"].tolist() == ["used", "excluded", "excluded"]
@@ -361,8 +410,11 @@ def test_exact_duplicate_rows_of_a_sample_id_are_excluded(tmp_path):
 
 
 def test_standards_may_repeat_their_name_in_sample_id(tmp_path):
-    p = write(tmp_path, "individual,tissue,d15N,d13C,date,sample_id,reference_material\n"
-              ",,-4.5,-26.4,,USGS40,USGS40\n,,-4.6,-26.3,,USGS40,USGS40\n"
-              "A,plasma,12,-18,2021-01-01,A1,\n")
+    p = write(
+        tmp_path,
+        "individual,tissue,d15N,d13C,date,sample_id,reference_material\n"
+        ",,-4.5,-26.4,,USGS40,USGS40\n,,-4.6,-26.3,,USGS40,USGS40\n"
+        "A,plasma,12,-18,2021-01-01,A1,\n",
+    )
     intake = read_samples(p)
     assert len(intake.references) == 2

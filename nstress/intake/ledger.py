@@ -113,9 +113,7 @@ class Ledger:
         names = list(texts)
         strings = []
         for pat in patterns:
-            parts = [
-                names[r] for r in range(len(names)) if (int(pat[r // 64]) >> (r % 64)) & 1
-            ]
+            parts = [names[r] for r in range(len(names)) if (int(pat[r // 64]) >> (r % 64)) & 1]
             strings.append("; ".join(parts))
         return np.asarray(strings, dtype=object)[inverse.ravel()]
 

@@ -167,8 +167,9 @@ def read_samples(
             errors.append(exc)
             continue
         if raw.sha256 in seen:
-            errors.append(InputError(f"same content as {seen[raw.sha256]} (file given twice?)",
-                                     file=raw.path))
+            errors.append(
+                InputError(f"same content as {seen[raw.sha256]} (file given twice?)", file=raw.path)
+            )
             continue
         seen[raw.sha256] = raw.path
         chk = check_table(raw, registry, float(default_sd), key0)
@@ -216,8 +217,15 @@ def read_samples(
             gc.enable()
     samples = samples[SAMPLE_COLUMNS + extras].reset_index(drop=True)
     samples["n_replicates"] = samples["n_replicates"].astype(np.int64)
-    for c in ("source_file", "individual", "tissue", "tissue_class", "group", "sample_id",
-              "analysis_batch"):
+    for c in (
+        "source_file",
+        "individual",
+        "tissue",
+        "tissue_class",
+        "group",
+        "sample_id",
+        "analysis_batch",
+    ):
         samples[c] = samples[c].astype(str)
     return Intake(
         samples=samples,
@@ -238,4 +246,3 @@ def _concat(frames: list[pd.DataFrame], keep_index: bool = False) -> pd.DataFram
 
 def _bundle(errors: list[InputError]) -> InputError:
     return errors[0] if len(errors) == 1 else InputErrors(errors)
-

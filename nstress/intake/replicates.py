@@ -205,8 +205,10 @@ def combine_replicates(
         put(c, sub[c].groupby(g).mean())
     sub_keys = sub["key"].to_numpy()
     size_of_row = sizes[g]
-    notes = [(sub_keys[size_of_row == k], combined_reason(k - 1))
-             for k in np.unique(size_of_row).tolist()]
+    notes = [
+        (sub_keys[size_of_row == k], combined_reason(k - 1))
+        for k in np.unique(size_of_row).tolist()
+    ]
     bad_rows = disagree.reindex(g).to_numpy(dtype=bool)
     flags = [(sub_keys[bad_rows], DISAGREE)] if bad_rows.any() else []
     return out, notes, flags

@@ -234,16 +234,25 @@ def check_table(raw: RawTable, tissues: dict[str, Tissue], default_sd: float, ke
     if err.items:
         return Checked(pd.DataFrame(), pd.DataFrame(), err.sorted(), marks, notes, extras)
 
-    err.rows(samp & (text["individual"] == "").to_numpy(), "individual", raw_values["individual"],
-             "individual is empty; expected an animal identifier")
+    err.rows(
+        samp & (text["individual"] == "").to_numpy(),
+        "individual",
+        raw_values["individual"],
+        "individual is empty; expected an animal identifier",
+    )
     tissue, tclass = _tissues(text["tissue"], tissues)
     known = ", ".join(sorted(tissues))
     t_empty = (tissue == "").to_numpy()
     t_unknown = ~t_empty & (tclass == "").to_numpy()
-    err.rows(samp & t_empty, "tissue", raw_values["tissue"],
-             f"tissue is empty; expected one of: {known}")
-    err.rows(samp & t_unknown, "tissue", raw_values["tissue"],
-             f"unknown tissue; expected one of: {known} (or declare it in a workflow file)")
+    err.rows(
+        samp & t_empty, "tissue", raw_values["tissue"], f"tissue is empty; expected one of: {known}"
+    )
+    err.rows(
+        samp & t_unknown,
+        "tissue",
+        raw_values["tissue"],
+        f"unknown tissue; expected one of: {known} (or declare it in a workflow file)",
+    )
 
     nums = {c: _numbers(col(c), miss[c], c, raw.decimal_comma, raw_values[c], err) for c in NUMERIC}
     for c, (lo, lo_ok, hi, what) in LIMITS.items():
@@ -277,8 +286,12 @@ def check_table(raw: RawTable, tissues: dict[str, Tissue], default_sd: float, ke
 
     lipid = _booleans(col("lipid_extracted"), miss["lipid_extracted"], raw_values, err)
     role = text["reference_role"].str.lower()
-    err.rows(~role.isin(["", "anchor", "check"]).to_numpy(), "reference_role",
-             raw_values["reference_role"], "expected 'anchor', 'check' or empty")
+    err.rows(
+        ~role.isin(["", "anchor", "check"]).to_numpy(),
+        "reference_role",
+        raw_values["reference_role"],
+        "expected 'anchor', 'check' or empty",
+    )
 
     for c in ("sd_d15N", "sd_d13C"):
         nums[c] = np.where(np.isnan(nums[c]), default_sd, nums[c])
@@ -346,8 +359,13 @@ def _numbers(
         if not decimal_comma:
             comma[bad] = s[bad].str.fullmatch(r"[+-]?\d*,\d+").to_numpy()
         err.rows(bad & ~comma, c, raw, "expected a number")
-        err.rows(comma, c, raw, "expected a number with '.' as decimal mark "
-                 "(a decimal comma is read only in ';'-separated files)")
+        err.rows(
+            comma,
+            c,
+            raw,
+            "expected a number with '.' as decimal mark "
+            "(a decimal comma is read only in ';'-separated files)",
+        )
         x[bad] = np.nan
     return x
 
@@ -378,8 +396,10 @@ def _dates(s: pd.Series, miss: np.ndarray, c: str, raw: pd.Series, err: _Errors)
     other = ~miss & ~iso
     if other.any():
         if iso.any():
-            msg = (f"mixed date formats in this column ({int(iso.sum())} ISO, "
-                   f"{int(other.sum())} other); expected ISO 8601 dates (YYYY-MM-DD) throughout")
+            msg = (
+                f"mixed date formats in this column ({int(iso.sum())} ISO, "
+                f"{int(other.sum())} other); expected ISO 8601 dates (YYYY-MM-DD) throughout"
+            )
         else:
             msg = "expected an ISO 8601 date (YYYY-MM-DD)"
         err.rows(other, c, raw, msg)
@@ -389,14 +409,16 @@ def _dates(s: pd.Series, miss: np.ndarray, c: str, raw: pd.Series, err: _Errors)
     return d.where(~miss)
 
 
-def _booleans(
-    s: pd.Series, miss: np.ndarray, raw: dict[str, pd.Series], err: _Errors
-) -> pd.Series:
+def _booleans(s: pd.Series, miss: np.ndarray, raw: dict[str, pd.Series], err: _Errors) -> pd.Series:
     low = s.str.lower()
     yes = low.isin(TRUE_WORDS).to_numpy()
     no = low.isin(FALSE_WORDS).to_numpy()
-    err.rows(~(yes | no | miss), "lipid_extracted", raw["lipid_extracted"],
-             "expected true or false (also yes/no, y/n, 1/0)")
+    err.rows(
+        ~(yes | no | miss),
+        "lipid_extracted",
+        raw["lipid_extracted"],
+        "expected true or false (also yes/no, y/n, 1/0)",
+    )
     out = pd.array(np.where(yes, True, False), dtype="boolean")
     out[~(yes | no)] = pd.NA
     return pd.Series(out, index=s.index)
@@ -421,8 +443,12 @@ def _isotope_checks(
             hard = np.abs(x) > HARD_LIMIT
             lo, hi = SOFT_RANGES[c]
             soft = samp & ~hard & ((x < lo) | (x > hi))
-        err.rows(hard, c, raw[c], f"|{c}| > {HARD_LIMIT:g} ‰ is beyond natural abundance; "
-                 "expected a per-mil δ value")
+        err.rows(
+            hard,
+            c,
+            raw[c],
+            f"|{c}| > {HARD_LIMIT:g} ‰ is beyond natural abundance; expected a per-mil δ value",
+        )
         marks.append(("flag", soft, soft_range_reason(c)))
 
 
@@ -433,15 +459,19 @@ def _scale_problem(c: str, x: np.ndarray, d13c: np.ndarray) -> str | None:
     lo, hi = RATIO_BANDS[c]
     heavy, light = ("13C", "12C") if c == "d13C" else ("15N", "14N")
     if np.all((v >= lo) & (v <= hi)):
-        return (f"values look like {heavy}/{light} isotope ratios (about {np.median(v):.5f}) "
-                f"or fractions, not δ in per mil; expected per-mil {c} values (e.g. "
-                f"{'-18.2' if c == 'd13C' else '12.3'})")
+        return (
+            f"values look like {heavy}/{light} isotope ratios (about {np.median(v):.5f}) "
+            f"or fractions, not δ in per mil; expected per-mil {c} values (e.g. "
+            f"{'-18.2' if c == 'd13C' else '12.3'})"
+        )
     fraction = bool(np.all(np.abs(v) <= FRACTION_LIMIT) and np.any(v != 0))
     if fraction and c == "d15N" and v.size < 3:
         w = d13c[np.isfinite(d13c)]
         fraction = bool(w.size and np.all(np.abs(w) <= FRACTION_LIMIT))
     if fraction:
         ex = float(np.median(v))
-        return (f"values look like fractions (e.g. {ex:.4g} for {ex * 1000:.3g} ‰), not per mil; "
-                f"expected per-mil {c} values (multiply by 1000)")
+        return (
+            f"values look like fractions (e.g. {ex:.4g} for {ex * 1000:.3g} ‰), not per mil; "
+            f"expected per-mil {c} values (multiply by 1000)"
+        )
     return None

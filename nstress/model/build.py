@@ -89,7 +89,9 @@ def _loglik(y, y_mask, sd, mu, extra_sd_obs):
 
 def data_centre(tb: TimeBase) -> np.ndarray:
     """Mean (δ15N, δ13C) of the observations minus their tissues' prior discrimination."""
-    disc = np.array([[tb.tissue_defs[t].disc_d15N, tb.tissue_defs[t].disc_d13C] for t in tb.tissues])
+    disc = np.array(
+        [[tb.tissue_defs[t].disc_d15N, tb.tissue_defs[t].disc_d13C] for t in tb.tissues]
+    )
     vals = []
     for o in (tb.blood, tb.keratin):
         if o.mask.any():
@@ -186,8 +188,12 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         )
 
         def _lognormal_group(name: str, key: str) -> Any:
-            m = pm.Normal(f"{name}_log_mean", pr[f"{key}_log_mean"]["mu"],
-                          pr[f"{key}_log_mean"]["sigma"], dims=dims.GROUP)
+            m = pm.Normal(
+                f"{name}_log_mean",
+                pr[f"{key}_log_mean"]["mu"],
+                pr[f"{key}_log_mean"]["sigma"],
+                dims=dims.GROUP,
+            )
             s = pm.HalfNormal(f"{name}_log_sd", sigma=pr[f"{key}_log_sd"]["sigma"])
             z = pm.Normal(f"z_{name}", 0.0, 1.0, dims=dims.INDIVIDUAL)
             return pm.Deterministic(name, pt.exp(m[gi] + s * z), dims=dims.INDIVIDUAL)
@@ -209,16 +215,18 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             disc_mu + (free * disc_sd)[:, None] * z_disc,
             dims=(dims.TISSUE, dims.ISOTOPE),
         )
-        is_blood = np.array([not t.is_keratin for t in tdefs])
-        hl_mu = np.array([np.log(t.half_life_days) if b else 0.0 for t, b in zip(tdefs, is_blood)])
-        hl_sd = np.array([t.half_life_sd_log if b else 0.0 for t, b in zip(tdefs, is_blood)])
+        hl_mu = np.array([np.log(t.half_life_days) if not t.is_keratin else 0.0 for t in tdefs])
+        hl_sd = np.array([t.half_life_sd_log if not t.is_keratin else 0.0 for t in tdefs])
         z_hl = pm.Normal("z_half_life", 0.0, 1.0, dims=dims.TISSUE)
         half_life = pm.Deterministic("half_life", pt.exp(hl_mu + hl_sd * z_hl), dims=dims.TISSUE)
         rate = np.log(2.0) / half_life
 
         n_k = max(len(tb.keratin_tissues), 1)
         g_mean = pm.Normal(
-            "growth_log_mean", 0.0, pr["growth_log_mean_sd"]["value"], shape=(G, n_k),
+            "growth_log_mean",
+            0.0,
+            pr["growth_log_mean_sd"]["value"],
+            shape=(G, n_k),
             dims=(dims.GROUP, "keratin_tissue"),
         )
         z_g = pm.Normal("z_growth", 0.0, 1.0, dims=(dims.INDIVIDUAL, "keratin_tissue"))
@@ -232,13 +240,24 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
 
         # ---- likelihood --------------------------------------------------
         params = forward.Params(
-            baseline=baseline, steps=steps, onset=onset, duration=duration, kappa=kappa,
-            tau_rec=tau_rec, gamma=gamma, disc=disc, rate=rate, growth=growth,
+            baseline=baseline,
+            steps=steps,
+            onset=onset,
+            duration=duration,
+            kappa=kappa,
+            tau_rec=tau_rec,
+            gamma=gamma,
+            disc=disc,
+            rate=rate,
+            growth=growth,
         )
         pred = forward.predict(tb, grid, params, xp=pt)
         ll0 = 0.0
         ll1 = 0.0
-        for o, y0, ye in ((tb.blood, pred.blood0, pred.blood_e), (tb.keratin, pred.keratin0, pred.keratin_e)):
+        for o, y0, ye in (
+            (tb.blood, pred.blood0, pred.blood_e),
+            (tb.keratin, pred.keratin0, pred.keratin_e),
+        ):
             if not o.mask.any():
                 continue
             mask = o.y_mask & o.mask[..., None]
@@ -250,4 +269,6 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         lp1 = pt.log(pi[gi]) + ll1
         pm.Potential("mixture", pt.sum(pt.logaddexp(lp0, lp1)))
         pm.Deterministic("p_episode_cond", pt.sigmoid(lp1 - lp0), dims=dims.INDIVIDUAL)
-    return BuiltModel(model=model, timebase=tb, grid=grid, spec=spec, priors=pr, reference_tissue=ref)
+    return BuiltModel(
+        model=model, timebase=tb, grid=grid, spec=spec, priors=pr, reference_tissue=ref
+    )

@@ -20,9 +20,18 @@ from nstress.model.build import BuiltModel
 from nstress.model.draws import Draws, latent_paths, predictions
 
 HYPER = (
-    "p_episode_group", "diet_level_group", "diet_level_sd", "walk_sd", "walk_corr",
-    "onset_group", "onset_sd", "duration_log_mean", "kappa_log_mean", "tau_rec_log_mean",
-    "gamma", "growth_log_mean",
+    "p_episode_group",
+    "diet_level_group",
+    "diet_level_sd",
+    "walk_sd",
+    "walk_corr",
+    "onset_group",
+    "onset_sd",
+    "duration_log_mean",
+    "kappa_log_mean",
+    "tau_rec_log_mean",
+    "gamma",
+    "growth_log_mean",
 )
 
 
@@ -164,9 +173,13 @@ def diagnose(
         if v["rhat_max"] > th.rhat_max:
             reasons.append(f"R-hat of {name} is {v['rhat_max']:.3f} (> {th.rhat_max})")
         if v["ess_bulk_min"] < th.ess_bulk_min:
-            reasons.append(f"bulk ESS of {name} is {v['ess_bulk_min']:.0f} (< {th.ess_bulk_min:.0f})")
+            reasons.append(
+                f"bulk ESS of {name} is {v['ess_bulk_min']:.0f} (< {th.ess_bulk_min:.0f})"
+            )
         if v["ess_tail_min"] < th.ess_tail_min:
-            reasons.append(f"tail ESS of {name} is {v['ess_tail_min']:.0f} (< {th.ess_tail_min:.0f})")
+            reasons.append(
+                f"tail ESS of {name} is {v['ess_tail_min']:.0f} (< {th.ess_tail_min:.0f})"
+            )
     if ss.get("divergences", 0) > th.divergences_max:
         reasons.append(f"{ss['divergences']} divergent transitions")
     for key, v in ppc.items():

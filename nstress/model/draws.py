@@ -19,8 +19,18 @@ from nstress.model import posterior as post
 from nstress.model.build import BuiltModel
 
 PARAM_NAMES = (
-    "diet_level", "diet_steps", "onset", "duration", "kappa", "tau_rec", "gamma",
-    "discrimination", "half_life", "growth", "p_episode_cond", "extra_sd",
+    "diet_level",
+    "diet_steps",
+    "onset",
+    "duration",
+    "kappa",
+    "tau_rec",
+    "gamma",
+    "discrimination",
+    "half_life",
+    "growth",
+    "p_episode_cond",
+    "extra_sd",
 )
 
 
@@ -89,7 +99,10 @@ def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:
     """
     tb, grid = built.timebase, built.grid
     p = d.params
-    diet = p["diet_level"][:, :, None, :] + np.einsum("tk,sikc->sitc", grid.walk, p["diet_steps"])
+    values = p["diet_level"][:, :, None, :] + np.einsum(
+        "ikj,sijc->sikc", grid.walk, p["diet_steps"]
+    )
+    diet = np.einsum("tk,sikc->sitc", grid.basis, values)
     t = tb.bin_mid[None, None, :]
     on, du = p["onset"][..., None], p["duration"][..., None]
     enrich = eq.enrichment(t, on, du, p["kappa"][..., None], p["tau_rec"][..., None])
@@ -98,12 +111,18 @@ def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:
 
 
 def predictions(built: BuiltModel, d: Draws, idx: np.ndarray) -> forward.Prediction:
-    """Expected tissue values for draw ``idx`` (one draw), via :func:`forward.predict`."""
+    """Return the expected tissue values of one draw, via :func:`forward.predict`."""
     p = d.params
     params = forward.Params(
-        baseline=p["diet_level"][idx], steps=p["diet_steps"][idx], onset=p["onset"][idx],
-        duration=p["duration"][idx], kappa=p["kappa"][idx], tau_rec=p["tau_rec"][idx],
-        gamma=d.gamma_ind[idx], disc=p["discrimination"][idx],
-        rate=np.log(2.0) / p["half_life"][idx], growth=p["growth"][idx],
+        baseline=p["diet_level"][idx],
+        steps=p["diet_steps"][idx],
+        onset=p["onset"][idx],
+        duration=p["duration"][idx],
+        kappa=p["kappa"][idx],
+        tau_rec=p["tau_rec"][idx],
+        gamma=d.gamma_ind[idx],
+        disc=p["discrimination"][idx],
+        rate=np.log(2.0) / p["half_life"][idx],
+        growth=p["growth"][idx],
     )
     return forward.predict(built.timebase, built.grid, params, xp=np)

@@ -58,7 +58,7 @@ class SamplerSettings:
     kwargs: dict[str, Any] = field(default_factory=dict)
 
     def result_settings(self) -> dict[str, Any]:
-        """The settings that change results (for hashing and provenance)."""
+        """Return the settings that change results (for hashing and provenance)."""
         d = asdict(self)
         d.pop("cores")
         d.pop("progress")
@@ -78,7 +78,9 @@ class FitResult:
 def resolve_sampler(name: str) -> str:
     """Return the sampler to use; check that an explicitly requested one is installed."""
     if name not in SAMPLERS:
-        raise ConfigError(f"unknown sampler {name!r}; expected one of {list(SAMPLERS)}", key="sampler.sampler")
+        raise ConfigError(
+            f"unknown sampler {name!r}; expected one of {list(SAMPLERS)}", key="sampler.sampler"
+        )
     has_nutpie = importlib.util.find_spec("nutpie") is not None
     if name == "nutpie" and not has_nutpie:
         raise ConfigError(
@@ -122,8 +124,15 @@ def sample(built: BuiltModel, settings: SamplerSettings | None = None) -> FitRes
                     kw.setdefault("target_accept", s.target_accept)
                 t0 = time.perf_counter()
                 idata = nutpie.sample(
-                    compiled, draws=s.draws, tune=s.tune, chains=s.chains, cores=cores,
-                    seed=int(s.seed), progress_bar=s.progress, save_warmup=False, **kw,
+                    compiled,
+                    draws=s.draws,
+                    tune=s.tune,
+                    chains=s.chains,
+                    cores=cores,
+                    seed=int(s.seed),
+                    progress_bar=s.progress,
+                    save_warmup=False,
+                    **kw,
                 )
                 timings["sample_s"] = time.perf_counter() - t0
             else:
@@ -133,9 +142,15 @@ def sample(built: BuiltModel, settings: SamplerSettings | None = None) -> FitRes
                 t0 = time.perf_counter()
                 with built.model:
                     idata = pm.sample(
-                        draws=s.draws, tune=s.tune, chains=s.chains, cores=cores,
-                        random_seed=int(s.seed), progressbar=s.progress,
-                        compute_convergence_checks=False, nuts_sampler="pymc", **kw,
+                        draws=s.draws,
+                        tune=s.tune,
+                        chains=s.chains,
+                        cores=cores,
+                        random_seed=int(s.seed),
+                        progressbar=s.progress,
+                        compute_convergence_checks=False,
+                        nuts_sampler="pymc",
+                        **kw,
                     )
                 timings["sample_s"] = time.perf_counter() - t0
                 timings["compile_s"] = 0.0

@@ -31,7 +31,11 @@ class Grid:
     knots
         Knot times of the diet walk (days since origin), equally spaced.
     walk
-        ``(T, K − 1)`` walk basis (:func:`nstress.equations.walk_basis`).
+        ``(I, K, K − 1)`` anchored walk matrices (:func:`nstress.equations.anchored_walk_matrix`).
+    basis
+        ``(T, K)`` hat basis of the knots at the bin centres.
+    anchor
+        ``(I,)`` knot at which each individual's walk is 0 (the median time of its samples).
     blood_bin
         ``(I, Nb)`` bin b of each draw.
     blood_phi
@@ -48,6 +52,8 @@ class Grid:
 
     knots: np.ndarray
     walk: np.ndarray
+    basis: np.ndarray
+    anchor: np.ndarray
     blood_bin: np.ndarray
     blood_phi: np.ndarray
     blood_individuals: np.ndarray
@@ -58,7 +64,7 @@ class Grid:
     @property
     def n_steps(self) -> int:
         """Number of walk increments per individual and isotope (K − 1)."""
-        return self.walk.shape[1]
+        return self.walk.shape[2]
 
     @property
     def spacing(self) -> float:
@@ -86,12 +92,15 @@ def make_grid(
     n_knots = max(int(np.ceil(span / knot_days)) + 1, 2)
     knots = np.arange(n_knots) * float(knot_days)
     b_bin = np.clip(np.floor(tb.blood.t / tb.bin_width), 0, tb.T - 1).astype(np.int64)
+    anchor = _anchor_knots(tb, knots)
     blood_tissues = [j for j, c in enumerate(tb.tissue_class) if c == "blood"]
     slot = np.zeros(tb.tissue_class.__len__(), dtype=np.int64)
     slot[blood_tissues] = np.arange(len(blood_tissues))
     return Grid(
         knots=knots,
-        walk=eq.walk_basis(tb.bin_mid, knots),
+        walk=eq.anchored_walk_matrix(n_knots, anchor),
+        basis=eq.knot_basis(tb.bin_mid, knots),
+        anchor=anchor,
         blood_bin=b_bin,
         blood_phi=tb.blood.t - b_bin * tb.bin_width,
         blood_individuals=np.flatnonzero(tb.blood.mask.any(axis=1)),
@@ -99,6 +108,18 @@ def make_grid(
         blood_tissue_slot=slot[tb.blood.tissue],
         keratin_points=int(keratin_points),
     )
+
+
+def _anchor_knots(tb: TimeBase, knots: np.ndarray) -> np.ndarray:
+    """Knot nearest the median time of each individual's samples (keratin at nominal growth)."""
+    times = []
+    b, k = tb.blood, tb.keratin
+    times.append(np.where(b.mask, b.t, np.nan))
+    times.append(np.where(k.mask, k.t - 0.5 * (k.h_lo + k.h_hi), np.nan))
+    allt = np.concatenate(times, axis=1)
+    med = np.nanmedian(np.where(np.isfinite(allt), allt, np.nan), axis=1)
+    med = np.where(np.isfinite(med), med, 0.0)
+    return np.clip(np.rint(med / (knots[1] - knots[0])), 0, len(knots) - 1).astype(int)
 
 
 @dataclass
@@ -158,12 +179,12 @@ class Prediction:
 
 
 def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Prediction:
-    """Expected values of every observation given the parameters.
+    """Return the expected values of every observation given the parameters.
 
     * Diet D(t): level + knot random walk, piecewise linear in time.
     * Enrichment E(t): closed form (:func:`nstress.equations.enrichment`).
     * Blood: one-compartment weights on the bins
-      (:func:`nstress.equations.blood_weights_lagged`) applied to D and E.
+      (:func:`nstress.equations.blood_from_filtered`) applied to D and E.
     * Keratin: D and E averaged over the segment's growth window
       [t_c − h_hi/r, t_c − h_lo/r] by the midpoint rule.
 
@@ -183,7 +204,7 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
     Prediction
     """
     n_ind = tb.n_individuals
-    diet = eq.diet_path(p.baseline, p.steps, grid.walk, xp=xp)
+    knot_values, diet = eq.diet_path(p.baseline, p.steps, grid.walk, grid.basis, xp=xp)
     t = tb.bin_mid[None, :]
     onset, duration = p.onset[:, None], p.duration[:, None]
     kappa, tau = p.kappa[:, None], p.tau_rec[:, None]
@@ -209,8 +230,15 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
         p_first = pool_b[:, :1, :]
         rate_obs = p.rate[b.tissue[with_blood]]
         vals = eq.blood_from_filtered(
-            s_prev, p_here, p_first, grid.blood_phi[with_blood], b.t[with_blood], rate_obs,
-            tb.bin_width, (bin_b >= 1).astype(float), xp=xp,
+            s_prev,
+            p_here,
+            p_first,
+            grid.blood_phi[with_blood],
+            b.t[with_blood],
+            rate_obs,
+            tb.bin_width,
+            (bin_b >= 1).astype(float),
+            xp=xp,
         )  # (Ib, Nb, 3)
         full = xp.zeros((n_ind, b.n, 3))
         if xp is np:
@@ -225,10 +253,9 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
     k = tb.keratin
     r = p.growth[np.arange(n_ind)[:, None], k.slot]
     tq = eq.window_points(k.t - k.h_hi / r, k.t - k.h_lo / r, grid.keratin_points)
-    zero = xp.zeros_like(p.steps[:, :1, :])
-    knot_values = xp.concatenate([zero, xp.cumsum(p.steps, axis=1)], axis=1)
-    walk_k = eq.interpolate_knots(tq, grid.spacing, knot_values, len(grid.knots), xp=xp)
-    diet_k = p.baseline[:, None, :] + walk_k.mean(axis=2)
+    diet_k = eq.interpolate_knots(tq, grid.spacing, knot_values, len(grid.knots), xp=xp).mean(
+        axis=2
+    )
     enrich_k = eq.enrichment(
         tq, onset[..., None], duration[..., None], kappa[..., None], tau[..., None], xp=xp
     ).mean(axis=2)
@@ -249,6 +276,6 @@ def _np_set(full: np.ndarray, rows: np.ndarray, vals: np.ndarray) -> np.ndarray:
 
 
 def with_episode(y0, ye, gamma, xp: ModuleType = np):
-    """Expected values with the episode: ``y0 + ye·(1, γ)``."""
+    """Return the expected values with the episode: ``y0 + ye·(1, γ)``."""
     g = gamma[:, None] if getattr(gamma, "ndim", 0) == 1 else gamma
     return eq.body_pool(y0, ye, g, xp=xp)

@@ -32,13 +32,13 @@ def has_var(idata: Any, name: str) -> bool:
 
 
 def n_chains_draws(idata: Any) -> tuple[int, int]:
-    """Number of chains and draws per chain."""
+    """Return the number of chains and draws per chain."""
     p = idata.posterior
     return int(p.sizes["chain"]), int(p.sizes["draw"])
 
 
 def sample_stat(idata: Any, *names: str) -> np.ndarray | None:
-    """The first of ``names`` present in ``sample_stats`` (samplers name them differently)."""
+    """Return the first of ``names`` in ``sample_stats`` (samplers name them differently)."""
     ss = getattr(idata, "sample_stats", None)
     if ss is None:
         return None
@@ -101,8 +101,10 @@ def sampler_stats(idata: Any) -> dict[str, float]:
     return out
 
 
-def subset_draws(idata: Any, names: list[str], max_draws: int | None = None) -> dict[str, np.ndarray]:
-    """Selected variables as arrays, optionally thinned to at most ``max_draws`` per chain."""
+def subset_draws(
+    idata: Any, names: list[str], max_draws: int | None = None
+) -> dict[str, np.ndarray]:
+    """Return variables as arrays, thinned to at most ``max_draws`` per chain."""
     out = {}
     _, n = n_chains_draws(idata)
     step = 1 if not max_draws or n <= max_draws else int(np.ceil(n / max_draws))
@@ -144,11 +146,17 @@ def load(path: str | Path) -> tuple[Any, dict[str, Any]]:
         idata = az.from_netcdf(str(path), engine="h5netcdf")
         idata.posterior.load()
     except Exception as exc:  # noqa: BLE001 - any reader failure means an unusable file
-        raise InputError(f"cannot read posterior file ({type(exc).__name__}: {exc})", file=str(path)) from None
+        raise InputError(
+            f"cannot read posterior file ({type(exc).__name__}: {exc})", file=str(path)
+        ) from None
     a = dict(idata.posterior.attrs)
     if a.get("nstress_format") != POSTERIOR_FORMAT:
         raise InputError("not an nstress posterior file", file=str(path))
-    attrs = {k[len("nstress_"):]: json.loads(v) for k, v in a.items() if k.startswith("nstress_") and k != "nstress_format"}
+    attrs = {
+        k[len("nstress_") :]: json.loads(v)
+        for k, v in a.items()
+        if k.startswith("nstress_") and k != "nstress_format"
+    }
     return idata, attrs
 
 

@@ -30,12 +30,18 @@ PRIORS: dict[str, dict[str, Any]] = {
         "dist": "normal",
         "mu": -3.2,
         "sigma": 0.5,
-        "doc": "group mean of log κ, κ = δ15N enrichment rate while catabolic (‰/d); exp(-3.2) ≈ 0.04",
-        "source": "fasting Δδ15N mean +0.5 ‰, up to several ‰ (Hertz et al. 2015; Doi et al. 2017); "
+        "doc": "group mean of log κ, the δ15N enrichment rate while catabolic (‰/d); "
+        "exp(-3.2) ≈ 0.04",
+        "source": "fasting Δδ15N mean +0.5 ‰, up to several ‰ "
+        "(Hertz et al. 2015; Doi et al. 2017); "
         "plasma +0.70 ‰ over a 25-day fast (Cherel et al. 2005)",
     },
-    "kappa_log_sd": {"dist": "halfnormal", "sigma": 0.3, "doc": "between-animal SD of log κ",
-                     "source": "common practice"},
+    "kappa_log_sd": {
+        "dist": "halfnormal",
+        "sigma": 0.3,
+        "doc": "between-animal SD of log κ",
+        "source": "common practice",
+    },
     "duration_log_mean": {
         "dist": "normal",
         "mu": 3.4,
@@ -43,8 +49,12 @@ PRIORS: dict[str, dict[str, Any]] = {
         "doc": "group mean of log episode duration (days); exp(3.4) ≈ 30 d",
         "source": "breeding/moult fasts of weeks, e.g. 25 d (Cherel et al. 2005)",
     },
-    "duration_log_sd": {"dist": "halfnormal", "sigma": 0.3, "doc": "between-animal SD of log duration",
-                        "source": "common practice"},
+    "duration_log_sd": {
+        "dist": "halfnormal",
+        "sigma": 0.3,
+        "doc": "between-animal SD of log duration",
+        "source": "common practice",
+    },
     "onset_sd": {
         "dist": "halfnormal",
         "sigma": 10.0,
@@ -58,30 +68,45 @@ PRIORS: dict[str, dict[str, Any]] = {
         "doc": "group mean of log recovery time τ (days) of the catabolic enrichment",
         "source": "body-protein turnover of weeks (from memory)",
     },
-    "tau_rec_log_sd": {"dist": "halfnormal", "sigma": 0.2, "doc": "between-animal SD of log τ",
-                       "source": "common practice"},
+    "tau_rec_log_sd": {
+        "dist": "halfnormal",
+        "sigma": 0.2,
+        "doc": "between-animal SD of log τ",
+        "source": "common practice",
+    },
     "gamma": {
         "dist": "normal",
         "mu": -0.1,
         "sigma": 0.3,
         "doc": "δ13C change per ‰ of catabolic δ15N, per group; sign not forced",
-        "source": "plasma δ13C fell in fasting penguins (Cherel et al. 2005); unchanged in rationed "
+        "source": "plasma δ13C fell in fasting penguins (Cherel et al. 2005); "
+        "unchanged in rationed "
         "birds (Hobson et al. 1993); reversed in restricted chicks (Williams et al. 2007)",
     },
-    "baseline_sd": {"dist": "halfnormal", "sigma": 1.5,
-                    "doc": "between-animal SD of diet level (‰), per isotope", "source": "common practice"},
-    "baseline_mean_sd": {"dist": "normal", "sigma": 5.0,
-                         "doc": "prior SD of a group's mean diet level around the data's mean (‰)",
-                         "source": "weakly informative (common practice)"},
+    "baseline_sd": {
+        "dist": "halfnormal",
+        "sigma": 1.5,
+        "doc": "between-animal SD of diet level (‰), per isotope",
+        "source": "common practice",
+    },
+    "baseline_mean_sd": {
+        "dist": "normal",
+        "sigma": 5.0,
+        "doc": "prior SD of a group's mean diet level around the data's mean (‰)",
+        "source": "weakly informative (common practice)",
+    },
     "walk_sd": {
         "dist": "halfnormal",
         "sigma": 0.3,
         "doc": "SD of diet random-walk increments per knot (‰), per isotope and group",
         "source": "common practice",
     },
-    "walk_scale_log_sd": {"dist": "fixed", "value": 0.7,
-                          "doc": "between-animal SD of the log walk scale (lets diet shifters move)",
-                          "source": "common practice"},
+    "walk_scale_log_sd": {
+        "dist": "fixed",
+        "value": 0.7,
+        "doc": "between-animal SD of the log walk scale (lets diet shifters move)",
+        "source": "common practice",
+    },
     "walk_corr": {
         "dist": "normal",
         "mu": 0.3,
@@ -90,12 +115,18 @@ PRIORS: dict[str, dict[str, Any]] = {
         "(≈ +3.4 ‰ N, +0.4 to +1 ‰ C per level, Post 2002)",
         "source": "Post 2002",
     },
-    "growth_log_mean_sd": {"dist": "fixed", "value": 0.15,
-                           "doc": "prior SD of a group's mean log growth multiplier",
-                           "source": "common practice"},
-    "extra_sd": {"dist": "halfnormal", "sigma": 0.15,
-                 "doc": "extra observation SD per tissue and isotope (‰) beyond analytical SD",
-                 "source": "EA-IRMS precision 0.1-0.2 ‰ (science.md); common practice"},
+    "growth_log_mean_sd": {
+        "dist": "fixed",
+        "value": 0.15,
+        "doc": "prior SD of a group's mean log growth multiplier",
+        "source": "common practice",
+    },
+    "extra_sd": {
+        "dist": "halfnormal",
+        "sigma": 0.15,
+        "doc": "extra observation SD per tissue and isotope (‰) beyond analytical SD",
+        "source": "EA-IRMS precision 0.1-0.2 ‰ (science.md); common practice",
+    },
     "epsilon_loss": {
         "dist": "normal",
         "mu": -3.8,

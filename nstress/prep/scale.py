@@ -115,8 +115,12 @@ def _fit(refs: pd.DataFrame, anchor: np.ndarray, iso: str, batch: str) -> dict[s
         ) from exc
     return {
         "anchors": [
-            {"rm": str(rm), "n": int(r.n), "measured_mean": float(r.measured),
-             "certified": float(r.certified)}
+            {
+                "rm": str(rm),
+                "n": int(r.n),
+                "measured_mean": float(r.measured),
+                "certified": float(r.certified),
+            }
             for rm, r in g.iterrows()
         ],
         "method": method,

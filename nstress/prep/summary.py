@@ -104,8 +104,11 @@ def summarise(prepared: Prepared) -> str:
         lines.append(
             f"  batch {c['batch']} {c['isotope']}: {c['method']}, anchors {anchors}, "
             f"slope {c['slope']:.4f}, intercept {c['intercept']:+.3f} ‰, {c['n_samples']} samples"
-            + (f", {c['n_outside_anchor_range']} outside the anchor range"
-               if c["n_outside_anchor_range"] else "")
+            + (
+                f", {c['n_outside_anchor_range']} outside the anchor range"
+                if c["n_outside_anchor_range"]
+                else ""
+            )
         )
         for chk in c["checks"]:
             lines.append(

@@ -256,7 +256,11 @@ def build_timebase(
     epoch = np.datetime64("1970-01-01", "D")
 
     def _days(col: str) -> np.ndarray:
-        v = pd.to_datetime(df[col], errors="coerce") if col in df else pd.Series(pd.NaT, index=df.index)
+        v = (
+            pd.to_datetime(df[col], errors="coerce")
+            if col in df
+            else pd.Series(pd.NaT, index=df.index)
+        )
         arr = v.to_numpy(dtype="datetime64[D]")
         days = (arr - epoch).astype("timedelta64[D]").astype(float)
         return np.where(np.isnat(arr), np.nan, days)  # NaT would cast to -9.2e18, not NaN

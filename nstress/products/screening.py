@@ -35,12 +35,33 @@ STATUSES = ("catabolic", "possible", "clear", "cannot_tell", "fit_failed")
 STATUS_ORDER = {"catabolic": 0, "possible": 1, "cannot_tell": 2, "fit_failed": 3, "clear": 4}
 
 SCREENING_COLUMNS = [
-    "individual", "group", "status", "status_reason", "rank", "p_catabolic_any",
-    "p_catabolic_any_lo", "p_catabolic_any_hi", "catabolic_days_mean",
-    "peak_enrichment_d15N_mean", "peak_enrichment_d15N_lo", "peak_enrichment_d15N_hi",
-    "onset_date", "onset_date_lo", "onset_date_hi", "end_date", "end_date_lo", "end_date_hi",
-    "duration_days_median", "body_N_loss_mean", "body_N_loss_lo", "body_N_loss_hi",
-    "n_samples", "n_d13C", "tissues", "diagnostics_ok", "approximate",
+    "individual",
+    "group",
+    "status",
+    "status_reason",
+    "rank",
+    "p_catabolic_any",
+    "p_catabolic_any_lo",
+    "p_catabolic_any_hi",
+    "catabolic_days_mean",
+    "peak_enrichment_d15N_mean",
+    "peak_enrichment_d15N_lo",
+    "peak_enrichment_d15N_hi",
+    "onset_date",
+    "onset_date_lo",
+    "onset_date_hi",
+    "end_date",
+    "end_date_lo",
+    "end_date_hi",
+    "duration_days_median",
+    "body_N_loss_mean",
+    "body_N_loss_lo",
+    "body_N_loss_hi",
+    "n_samples",
+    "n_d13C",
+    "tissues",
+    "diagnostics_ok",
+    "approximate",
 ]
 
 
@@ -76,8 +97,14 @@ def data_support(tb: TimeBase) -> pd.DataFrame:
             n += int(m.sum())
             n_c += int((o.y_mask[i, :, 1] & m).sum())
             tis.update(tb.tissues[k] for k in o.tissue[i][m])
-        rows.append({"individual": str(name), "n_samples": n, "n_d13C": n_c,
-                     "tissues": "+".join(sorted(tis))})
+        rows.append(
+            {
+                "individual": str(name),
+                "n_samples": n,
+                "n_d13C": n_c,
+                "tissues": "+".join(sorted(tis)),
+            }
+        )
     return pd.DataFrame(rows)
 
 
@@ -162,11 +189,16 @@ def screening_table(
     fit_ok = np.asarray(diagnostics.individual_ok, bool) & bool(diagnostics.ok)
     df["diagnostics_ok"] = fit_ok
     df["status"], df["status_reason"] = assign_status(
-        df["p_catabolic_any"].to_numpy(), df["n_samples"].to_numpy(), df["n_d13C"].to_numpy(),
-        fit_ok, rules,
+        df["p_catabolic_any"].to_numpy(),
+        df["n_samples"].to_numpy(),
+        df["n_d13C"].to_numpy(),
+        fit_ok,
+        rules,
     )
     if not diagnostics.ok:
-        df["status_reason"] = "the fit failed its diagnostics: " + "; ".join(diagnostics.reasons[:3])
+        df["status_reason"] = "the fit failed its diagnostics: " + "; ".join(
+            diagnostics.reasons[:3]
+        )
     df["approximate"] = bool(approximate)
     df["_order"] = df["status"].map(STATUS_ORDER)
     df = df.sort_values(
@@ -195,16 +227,18 @@ def colony_summary(
         m = group_index == g
         share = d_episode[:, m].mean(1)
         sub = screening[screening["group"] == name]
-        rows.append({
-            "group": str(name),
-            "n_animals": int(m.sum()),
-            "n_catabolic": int((sub["status"] == "catabolic").sum()),
-            "n_possible": int((sub["status"] == "possible").sum()),
-            "n_cannot_tell": int((sub["status"] == "cannot_tell").sum()),
-            "n_fit_failed": int((sub["status"] == "fit_failed").sum()),
-            "share_with_episode_mean": float(share.mean()),
-            "share_with_episode_lo": float(np.quantile(share, 0.05)),
-            "share_with_episode_hi": float(np.quantile(share, 0.95)),
-            "catabolic_days_total": float(sub["catabolic_days_mean"].sum()),
-        })
+        rows.append(
+            {
+                "group": str(name),
+                "n_animals": int(m.sum()),
+                "n_catabolic": int((sub["status"] == "catabolic").sum()),
+                "n_possible": int((sub["status"] == "possible").sum()),
+                "n_cannot_tell": int((sub["status"] == "cannot_tell").sum()),
+                "n_fit_failed": int((sub["status"] == "fit_failed").sum()),
+                "share_with_episode_mean": float(share.mean()),
+                "share_with_episode_lo": float(np.quantile(share, 0.05)),
+                "share_with_episode_hi": float(np.quantile(share, 0.95)),
+                "catabolic_days_total": float(sub["catabolic_days_mean"].sum()),
+            }
+        )
     return pd.DataFrame(rows)

@@ -79,7 +79,7 @@ def compute_products(
     Products
     """
     tb = built.timebase
-    I, T = tb.n_individuals, tb.T  # noqa: E741
+    T = tb.T
     pc = d.p_cond  # (S, I)
     z = d.episode.astype(float)  # (S, I)
     p_cat = (pc[..., None] * paths["inside"]).mean(0)  # (I, T)
@@ -174,20 +174,41 @@ def compute_products(
     ds = xr.Dataset(
         {
             "p_catabolic": ((dims.INDIVIDUAL, dims.BIN), _masked(p_cat), {"units": "probability"}),
-            "enrichment_d15N_mean": ((dims.INDIVIDUAL, dims.BIN), _masked(e_mean),
-                                     {"units": "per mil (d15N vs AIR)"}),
-            "enrichment_d15N_lo": ((dims.INDIVIDUAL, dims.BIN), _masked(e_lo),
-                                   {"units": "per mil (d15N vs AIR)", "quantile": Q_LO}),
-            "enrichment_d15N_hi": ((dims.INDIVIDUAL, dims.BIN), _masked(e_hi),
-                                   {"units": "per mil (d15N vs AIR)", "quantile": Q_HI}),
-            "diet_mean": ((dims.INDIVIDUAL, dims.BIN, dims.ISOTOPE), _masked(d_mean),
-                          {"units": "per mil; d15N vs AIR, d13C vs VPDB"}),
-            "diet_lo": ((dims.INDIVIDUAL, dims.BIN, dims.ISOTOPE), _masked(d_lo),
-                        {"units": "per mil", "quantile": Q_LO}),
-            "diet_hi": ((dims.INDIVIDUAL, dims.BIN, dims.ISOTOPE), _masked(d_hi),
-                        {"units": "per mil", "quantile": Q_HI}),
-            "date": ((dims.INDIVIDUAL, dims.BIN), dates.astype("datetime64[ns]"),
-                     {"description": "bin centre"}),
+            "enrichment_d15N_mean": (
+                (dims.INDIVIDUAL, dims.BIN),
+                _masked(e_mean),
+                {"units": "per mil (d15N vs AIR)"},
+            ),
+            "enrichment_d15N_lo": (
+                (dims.INDIVIDUAL, dims.BIN),
+                _masked(e_lo),
+                {"units": "per mil (d15N vs AIR)", "quantile": Q_LO},
+            ),
+            "enrichment_d15N_hi": (
+                (dims.INDIVIDUAL, dims.BIN),
+                _masked(e_hi),
+                {"units": "per mil (d15N vs AIR)", "quantile": Q_HI},
+            ),
+            "diet_mean": (
+                (dims.INDIVIDUAL, dims.BIN, dims.ISOTOPE),
+                _masked(d_mean),
+                {"units": "per mil; d15N vs AIR, d13C vs VPDB"},
+            ),
+            "diet_lo": (
+                (dims.INDIVIDUAL, dims.BIN, dims.ISOTOPE),
+                _masked(d_lo),
+                {"units": "per mil", "quantile": Q_LO},
+            ),
+            "diet_hi": (
+                (dims.INDIVIDUAL, dims.BIN, dims.ISOTOPE),
+                _masked(d_hi),
+                {"units": "per mil", "quantile": Q_HI},
+            ),
+            "date": (
+                (dims.INDIVIDUAL, dims.BIN),
+                dates.astype("datetime64[ns]"),
+                {"description": "bin centre"},
+            ),
         },
         coords=coords,
         attrs={"bin_width_days": tb.bin_width, "interval": "90 % (5 % to 95 %)"},

@@ -199,11 +199,22 @@ def _run_check(args: argparse.Namespace) -> int:
         path = atomic_write(Path(args.out) / "ledger.csv", lambda p: write_csv(frame, p))
         progress(f"wrote {path}")
     if not args.quiet:
-        print(summarise_check(intake, samples, ledger, usable, verbose=args.verbose,
-                              prep_text=prep_text, frame=frame))
+        print(
+            summarise_check(
+                intake,
+                samples,
+                ledger,
+                usable,
+                verbose=args.verbose,
+                prep_text=prep_text,
+                frame=frame,
+            )
+        )
     if usable == 0:
-        print("nstress: error: no usable sample (every row was excluded; see the reasons above)",
-              file=sys.stderr)
+        print(
+            "nstress: error: no usable sample (every row was excluded; see the reasons above)",
+            file=sys.stderr,
+        )
         return EXIT_BAD_INPUT
     return EXIT_OK
 
@@ -327,16 +338,20 @@ def _own_counts(
     )
     summary = (
         frame.assign(reason=frame["reason"].replace("", "-"))
-        .groupby(["status", "reason"]).size().rename("rows").reset_index()
+        .groupby(["status", "reason"])
+        .size()
+        .rename("rows")
+        .reset_index()
     )
     for _, r in summary.iterrows():
         lines.append(f"  {r['status']:<9} {int(r['rows']):>8}  {r['reason']}")
         if verbose and r["status"] != "used":
             reason = "" if r["reason"] == "-" else r["reason"]
             hit = frame[(frame["status"] == r["status"]) & (frame["reason"] == reason)]
-            where = ", ".join(f"{f} row {n}" for f, n in
-                              zip(hit["source_file"].head(5), hit["source_row"].head(5),
-                                  strict=True))
+            where = ", ".join(
+                f"{f} row {n}"
+                for f, n in zip(hit["source_file"].head(5), hit["source_row"].head(5), strict=True)
+            )
             lines.append(f"            e.g. {where}{' ...' if len(hit) > 5 else ''}")
     return lines
 
@@ -377,19 +392,28 @@ diagnostics (products are still written, marked); 2: bad input.
 """
 
 
-def _fit_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("tables", nargs="+", metavar="TABLE", help="sample table(s)")
-    p.add_argument("--out", metavar="DIR", type=Path, required=True, help="output directory")
+def _model_arguments(p: argparse.ArgumentParser) -> None:
+    """Sampler, grid and verbosity options shared by ``fit`` and ``demo``."""
     p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
     p.add_argument("--draws", type=int, default=1000, help="kept draws per chain (default 1000)")
     p.add_argument("--tune", type=int, default=1000, help="warm-up draws per chain (default 1000)")
     p.add_argument("--chains", type=int, default=2, help="chains (default 2)")
-    p.add_argument("--sampler", choices=["auto", "nutpie", "pymc"], default="auto",
-                   help="NUTS implementation (default: nutpie when installed)")
+    p.add_argument(
+        "--sampler",
+        choices=["auto", "nutpie", "pymc"],
+        default="auto",
+        help="NUTS implementation (default: nutpie when installed)",
+    )
     p.add_argument("--bin-days", type=float, default=4.0, help="grid bin width in days")
     g = p.add_mutually_exclusive_group()
     g.add_argument("--quiet", action="store_true", help="print nothing but errors")
     g.add_argument("--verbose", action="store_true", help="more detail")
+
+
+def _fit_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("tables", nargs="+", metavar="TABLE", help="sample table(s)")
+    p.add_argument("--out", metavar="DIR", type=Path, required=True, help="output directory")
+    _model_arguments(p)
 
 
 def _run_fit(args: argparse.Namespace) -> int:
@@ -401,8 +425,13 @@ def _run_fit(args: argparse.Namespace) -> int:
     progress = Progress(args.quiet, args.verbose)
     cfg = FitConfig(
         bin_days=args.bin_days,
-        sampler={"draws": args.draws, "tune": args.tune, "chains": args.chains,
-                 "seed": args.seed, "sampler": args.sampler},
+        sampler={
+            "draws": args.draws,
+            "tune": args.tune,
+            "chains": args.chains,
+            "seed": args.seed,
+            "sampler": args.sampler,
+        },
         progress=not args.quiet,
     )
     manifest = fit_tables(args.tables, args.out, cfg, log=progress)
@@ -421,5 +450,53 @@ register(
         run=_run_fit,
         description="The whole pipeline on one or more tables with default settings.",
         epilog=_FIT_EPILOG,
+    )
+)
+
+
+# ---------------------------------------------------------------- demo
+
+_DEMO_EPILOG = """\
+examples:
+  nstress demo --out demo_run/
+  nstress demo --out demo_run/ --draws 300 --tune 300     # quicker, may fail diagnostics
+
+Fits the invented (synthetic) demo colony shipped in demo_data/ and writes the
+same files as `nstress fit`.
+"""
+
+
+def demo_table() -> Path:
+    """Path of the synthetic demo colony's sample table."""
+    here = Path(__file__).resolve().parents[2] / "demo_data" / "colony_samples.csv"
+    if not here.exists():
+        raise NstressError(f"demo data not found at {here}; run from a source checkout")
+    return here
+
+
+def _demo_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--out",
+        metavar="DIR",
+        type=Path,
+        default=Path("demo_run"),
+        help="output directory (default demo_run/)",
+    )
+    _model_arguments(p)
+
+
+def _run_demo(args: argparse.Namespace) -> int:
+    args.tables = [demo_table()]
+    return _run_fit(args)
+
+
+register(
+    Command(
+        name="demo",
+        help="run the whole pipeline on the invented demo colony",
+        add_arguments=_demo_arguments,
+        run=_run_demo,
+        description="Fit the synthetic demo colony (demo_data/) with default settings.",
+        epilog=_DEMO_EPILOG,
     )
 )

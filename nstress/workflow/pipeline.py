@@ -64,7 +64,7 @@ class FitConfig:
     progress: bool = True
 
     def result_config(self) -> dict[str, Any]:
-        """The settings that change results, as plain data (hashed for caching)."""
+        """Return the settings that change results, as plain data (hashed for caching)."""
         d = asdict(self)
         d.pop("cores")
         d.pop("progress")
@@ -83,8 +83,11 @@ def sha256_file(path: str | Path) -> str:
 
 def config_hash(inputs: list[dict[str, Any]], config: dict[str, Any]) -> str:
     """Content hash of the inputs' sha256s and the result configuration."""
-    blob = json.dumps({"inputs": [i["sha256"] for i in inputs], "config": config,
-                       "version": __version__}, sort_keys=True, default=str)
+    blob = json.dumps(
+        {"inputs": [i["sha256"] for i in inputs], "config": config, "version": __version__},
+        sort_keys=True,
+        default=str,
+    )
     return hashlib.sha256(blob.encode()).hexdigest()
 
 
@@ -93,8 +96,17 @@ def versions() -> dict[str, str]:
     import importlib.metadata as md
 
     out = {"python": platform.python_version(), "nstress": __version__}
-    for pkg in ("numpy", "pandas", "scipy", "pymc", "pytensor", "arviz", "xarray", "nutpie",
-                "matplotlib"):
+    for pkg in (
+        "numpy",
+        "pandas",
+        "scipy",
+        "pymc",
+        "pytensor",
+        "arviz",
+        "xarray",
+        "nutpie",
+        "matplotlib",
+    ):
         try:
             out[pkg] = md.version(pkg)
         except md.PackageNotFoundError:
@@ -189,26 +201,31 @@ def fit_tables(
     diag = diagnose(built, fit.idata, draws, thresholds, seed=seed)
     paths = latent_paths(built, draws)
     eps = built.priors["epsilon_loss"]
-    prods = compute_products(built, draws, paths, epsilon_mu=eps["mu"], epsilon_sd=eps["sigma"],
-                             seed=seed)
+    prods = compute_products(
+        built, draws, paths, epsilon_mu=eps["mu"], epsilon_sd=eps["sigma"], seed=seed
+    )
     screen = screening_table(prods.episodes, tb, diag, rules)
     summary = colony_summary(screen, draws.episode, tb.groups, tb.group_index)
     timings["products_s"] = time.perf_counter() - t0
-    prods.dataset.attrs.update({"diagnostics_ok": int(diag.ok), "nstress_version": __version__,
-                                "input_hash": digest})
+    prods.dataset.attrs.update(
+        {"diagnostics_ok": int(diag.ok), "nstress_version": __version__, "input_hash": digest}
+    )
 
     # ---- write ----------------------------------------------------------------
     out.mkdir(parents=True, exist_ok=True)
     (out / FINISHED_MARK).unlink(missing_ok=True)
     atomic_write(out / "ledger.csv", lambda p: write_csv(prepared.ledger.to_frame(), p))
     tl = prods.timelines.copy()
-    tl["diagnostics_ok"] = tl["individual"].map(dict(zip(screen["individual"],
-                                                         screen["diagnostics_ok"], strict=True)))
+    tl["diagnostics_ok"] = tl["individual"].map(
+        dict(zip(screen["individual"], screen["diagnostics_ok"], strict=True))
+    )
     atomic_write(out / "timelines.csv", lambda p: tl.to_csv(p, index=False, float_format="%.5g"))
-    atomic_write(out / "screening.csv", lambda p: screen.to_csv(p, index=False,
-                                                                float_format="%.5g"))
-    atomic_write(out / "colony_summary.csv", lambda p: summary.to_csv(p, index=False,
-                                                                      float_format="%.5g"))
+    atomic_write(
+        out / "screening.csv", lambda p: screen.to_csv(p, index=False, float_format="%.5g")
+    )
+    atomic_write(
+        out / "colony_summary.csv", lambda p: summary.to_csv(p, index=False, float_format="%.5g")
+    )
     atomic_write(out / "timelines.nc", lambda p: prods.dataset.to_netcdf(p, engine="h5netcdf"))
     attrs = {
         "config": result_cfg,
