@@ -44,6 +44,10 @@ class ModelSpec:
         Knot spacing of the diet random walk (days).
     priors
         Prior overrides (see :mod:`nstress.model.priors`).
+    walk
+        ``"noncentred"`` or ``"centred"`` parameterisation of the diet walk.
+    walk_scale_per_animal
+        Whether each animal's walk has its own scale (lets diet shifters move).
     reference_tissue
         Tissue whose discrimination is fixed at its prior mean (identifies
         the diet level); default: a keratin tissue if present, else the
@@ -53,6 +57,8 @@ class ModelSpec:
     knot_days: float = forward.DEFAULT_KNOT_DAYS
     priors: dict[str, dict[str, Any]] = field(default_factory=dict)
     reference_tissue: str | None = None
+    walk: str = "noncentred"
+    walk_scale_per_animal: bool = True
 
 
 @dataclass
@@ -167,16 +173,31 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         w_sd = pm.HalfNormal("walk_sd", sigma=pr["walk_sd"]["sigma"], dims=dims.ISOTOPE)
         w_corr_raw = pm.Normal("walk_corr_z", pr["walk_corr"]["mu"], pr["walk_corr"]["sigma"])
         rho = pm.Deterministic("walk_corr", pt.tanh(w_corr_raw))
-        z_ws = pm.Normal("z_walk_scale", 0.0, 1.0, dims=dims.INDIVIDUAL)
-        w_scale = pt.exp(pr["walk_scale_log_sd"]["value"] * z_ws)
-        z_w = pm.Normal("z_walk", 0.0, 1.0, dims=(dims.INDIVIDUAL, "knot_step", dims.ISOTOPE))
-        step_n = z_w[..., 0]
-        step_c = rho * z_w[..., 0] + pt.sqrt(1.0 - rho**2) * z_w[..., 1]
-        scale = (w_scale[:, None] * step_mask)[..., None] * w_sd
+        if spec.walk_scale_per_animal:
+            z_ws = pm.Normal("z_walk_scale", 0.0, 1.0, dims=dims.INDIVIDUAL)
+            w_scale = pt.exp(pr["walk_scale_log_sd"]["value"] * z_ws)
+        else:
+            w_scale = pt.ones((I,))
+        scale = (w_scale[:, None] * step_mask)[..., None] * w_sd  # (I, K-1, 2)
+        if spec.walk == "centred":
+            # centred: better when the data pin the path down (dense keratin series)
+            safe = pt.where(step_mask[..., None] > 0, scale, 1.0)
+            s_n = pm.Normal("walk_d15N", 0.0, safe[..., 0], dims=(dims.INDIVIDUAL, "knot_step"))
+            cond_mu = rho * safe[..., 1] / safe[..., 0] * s_n
+            s_c = pm.Normal(
+                "walk_d13C",
+                cond_mu,
+                safe[..., 1] * pt.sqrt(1.0 - rho**2),
+                dims=(dims.INDIVIDUAL, "knot_step"),
+            )
+            raw = pt.stack([s_n, s_c], axis=-1) * (step_mask[..., None] > 0)
+        else:
+            z_w = pm.Normal("z_walk", 0.0, 1.0, dims=(dims.INDIVIDUAL, "knot_step", dims.ISOTOPE))
+            step_n = z_w[..., 0]
+            step_c = rho * z_w[..., 0] + pt.sqrt(1.0 - rho**2) * z_w[..., 1]
+            raw = pt.stack([step_n, step_c], axis=-1) * scale
         steps = pm.Deterministic(
-            "diet_steps",
-            pt.stack([step_n, step_c], axis=-1) * scale,
-            dims=(dims.INDIVIDUAL, "knot_step", dims.ISOTOPE),
+            "diet_steps", raw, dims=(dims.INDIVIDUAL, "knot_step", dims.ISOTOPE)
         )
 
         # ---- episode timing and size (non-centred) ---------------------------
