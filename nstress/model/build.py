@@ -86,13 +86,6 @@ def _coords(tb: TimeBase, grid: forward.Grid) -> dict[str, Any]:
     }
 
 
-def _loglik(y, y_mask, sd, mu, extra_sd_obs):
-    """Per-individual Gaussian log-likelihood summed over masked entries."""
-    s2 = sd**2 + extra_sd_obs**2
-    lp = -0.5 * (pt.log(2 * np.pi * s2) + (y - mu) ** 2 / s2)
-    return pt.sum(pt.where(y_mask, lp, 0.0), axis=(1, 2))
-
-
 def data_centre(tb: TimeBase) -> np.ndarray:
     """Mean (δ15N, δ13C) of the observations minus their tissues' prior discrimination."""
     disc = np.array(
@@ -273,23 +266,13 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             growth=growth,
         )
         pred = forward.predict(tb, grid, params, xp=pt)
-        ll0 = 0.0
-        ll1 = 0.0
-        for o, y0, ye in (
-            (tb.blood, pred.blood0, pred.blood_e),
-            (tb.keratin, pred.keratin0, pred.keratin_e),
-        ):
-            if not o.mask.any():
-                continue
-            mask = o.y_mask & o.mask[..., None]
-            esd = extra_sd[o.tissue]
-            y1 = forward.with_episode(y0, ye, gamma, xp=pt)
-            ll0 = ll0 + _loglik(o.y, mask, o.sd, y0, esd)
-            ll1 = ll1 + _loglik(o.y, mask, o.sd, y1, esd)
+        ll0, ll1 = forward.episode_logliks(tb, pred, gamma, extra_sd, xp=pt)
         lp0 = pt.log1p(-pi[gi]) + ll0
         lp1 = pt.log(pi[gi]) + ll1
         pm.Potential("mixture", pt.sum(pt.logaddexp(lp0, lp1)))
-        pm.Deterministic("p_episode_cond", pt.sigmoid(lp1 - lp0), dims=dims.INDIVIDUAL)
+        # P(episode | continuous parameters) per draw is recomputed after sampling from the
+        # stored parameters with the same equations (nstress.model.draws), which keeps the
+        # forward model out of the compiled "expand" function.
     return BuiltModel(
         model=model, timebase=tb, grid=grid, spec=spec, priors=pr, reference_tissue=ref
     )

@@ -79,12 +79,25 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
     cd = arrays["onset"].shape[:2]
     flat = {k: v.reshape((-1,) + v.shape[2:]) for k, v in arrays.items()}
     gi = built.timebase.group_index
-    p_cond = np.clip(flat["p_episode_cond"], 0.0, 1.0)
-    rng = np.random.default_rng(seed)
-    episode = rng.random(p_cond.shape) < p_cond
-    return Draws(
-        params=flat, chain_draw=cd, p_cond=p_cond, episode=episode, gamma_ind=flat["gamma"][:, gi]
+    d = Draws(
+        params=flat,
+        chain_draw=cd,
+        p_cond=np.zeros((flat["onset"].shape[0], len(gi))),
+        episode=np.zeros((flat["onset"].shape[0], len(gi)), bool),
+        gamma_ind=flat["gamma"][:, gi],
     )
+    # P(episode | parameters) per draw, with the model's own likelihood (forward.py)
+    pi = flat["p_episode_group"][:, gi]
+    for s in range(d.n):
+        pred = predictions(built, d, s)
+        ll0, ll1 = forward.episode_logliks(
+            built.timebase, pred, d.gamma_ind[s], flat["extra_sd"][s]
+        )
+        logit = np.log(pi[s]) - np.log1p(-pi[s]) + ll1 - ll0
+        d.p_cond[s] = 0.5 * (1.0 + np.tanh(0.5 * logit))
+    rng = np.random.default_rng(seed)
+    d.episode[:] = rng.random(d.p_cond.shape) < d.p_cond
+    return d
 
 
 def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:

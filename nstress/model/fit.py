@@ -23,6 +23,18 @@ from nstress.model.build import BuiltModel
 
 log = logging.getLogger(__name__)
 SAMPLERS = ("auto", "nutpie", "pymc")
+KEEP_DETERMINISTICS = (
+    "diet_level",
+    "diet_steps",
+    "onset",
+    "duration",
+    "kappa",
+    "tau_rec",
+    "discrimination",
+    "half_life",
+    "growth",
+    "walk_corr",
+)
 
 
 @dataclass
@@ -117,7 +129,10 @@ def sample(built: BuiltModel, settings: SamplerSettings | None = None) -> FitRes
                 import nutpie
 
                 t0 = time.perf_counter()
-                compiled = nutpie.compile_pymc_model(built.model, backend="numba")
+                keep = [v.name for v in built.model.free_RVs] + [
+                    n for n in KEEP_DETERMINISTICS if n in built.model.named_vars
+                ]
+                compiled = nutpie.compile_pymc_model(built.model, backend="numba", var_names=keep)
                 timings["compile_s"] = time.perf_counter() - t0
                 kw = dict(s.kwargs)
                 if s.target_accept is not None:
@@ -158,6 +173,6 @@ def sample(built: BuiltModel, settings: SamplerSettings | None = None) -> FitRes
         raise
     except Exception as exc:  # noqa: BLE001 - any sampler failure is a failed fit
         raise FitError(f"sampling failed with {which}: {type(exc).__name__}: {exc}") from exc
-    if not np.all(np.isfinite(idata.posterior["p_episode_cond"].values)):
+    if not np.all(np.isfinite(idata.posterior["onset"].values)):
         raise FitError("sampling produced non-finite values")
     return FitResult(idata=idata, sampler=which, settings=s, timings=timings)
