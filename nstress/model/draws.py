@@ -29,8 +29,8 @@ PARAM_NAMES = (
     "discrimination",
     "half_life",
     "growth",
-    "p_episode_cond",
     "extra_sd",
+    "p_episode_group",
 )
 
 
