@@ -159,9 +159,10 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             dims=(dims.GROUP, dims.ISOTOPE),
         )
         sd_b = pm.HalfNormal("diet_level_sd", sigma=pr["baseline_sd"]["sigma"], dims=dims.ISOTOPE)
-        z_b = pm.Normal("z_diet_level", 0.0, 1.0, dims=(dims.INDIVIDUAL, dims.ISOTOPE))
-        baseline = pm.Deterministic(
-            "diet_level", mu_b[gi] + sd_b * z_b, dims=(dims.INDIVIDUAL, dims.ISOTOPE)
+        # centred: every animal's level is pinned by its own samples, and a non-centred
+        # level is then nearly collinear with the group mean (a stiff direction for NUTS)
+        baseline = pm.Normal(
+            "diet_level", mu=mu_b[gi], sigma=sd_b, dims=(dims.INDIVIDUAL, dims.ISOTOPE)
         )
         w_sd = pm.HalfNormal("walk_sd", sigma=pr["walk_sd"]["sigma"], dims=dims.ISOTOPE)
         w_corr_raw = pm.Normal("walk_corr_z", pr["walk_corr"]["mu"], pr["walk_corr"]["sigma"])
@@ -243,10 +244,13 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             shape=(G, n_k),
             dims=(dims.GROUP, "keratin_tissue"),
         )
-        z_g = pm.Normal("z_growth", 0.0, 1.0, dims=(dims.INDIVIDUAL, "keratin_tissue"))
         gsd = np.nan_to_num(tb.growth_sd_log, nan=0.1)
+        # centred for the same reason: keratin timing pins each animal's growth tightly
+        log_growth = pm.Normal(
+            "growth_log", mu=g_mean[gi], sigma=gsd, dims=(dims.INDIVIDUAL, "keratin_tissue")
+        )
         growth = pm.Deterministic(
-            "growth", pt.exp(g_mean[gi] + gsd * z_g), dims=(dims.INDIVIDUAL, "keratin_tissue")
+            "growth", pt.exp(log_growth), dims=(dims.INDIVIDUAL, "keratin_tissue")
         )
         extra_sd = pm.HalfNormal(
             "extra_sd", sigma=pr["extra_sd"]["sigma"], dims=(dims.TISSUE, dims.ISOTOPE)
