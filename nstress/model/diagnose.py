@@ -82,7 +82,7 @@ def _identified(built: BuiltModel, d: Draws, paths: dict[str, np.ndarray], idata
         "discrimination": d.by_chain(d.params["discrimination"]),
         "half_life": d.by_chain(d.params["half_life"]),
     }
-    n_chain, per = d.chain_draw
+    per = d.chain_draw[1]
     for name in HYPER:
         if post.has_var(idata, name):
             a = post.var(idata, name)
@@ -135,7 +135,12 @@ def _ppc(built: BuiltModel, d: Draws, seed: int, n_rep: int = 200) -> dict[str, 
 
 
 def diagnose(
-    built: BuiltModel, idata: Any, d: Draws, thresholds: Thresholds | None = None, seed: int = 0
+    built: BuiltModel,
+    idata: Any,
+    d: Draws,
+    thresholds: Thresholds | None = None,
+    seed: int = 0,
+    paths: dict[str, np.ndarray] | None = None,
 ) -> Diagnostics:
     """Judge a fit on identified quantities, sampler statistics and predictive checks.
 
@@ -151,13 +156,15 @@ def diagnose(
         Pass marks.
     seed
         Seed of the predictive replicates.
+    paths
+        Latent paths of ``d`` (:func:`nstress.model.draws.latent_paths`) if already computed.
 
     Returns
     -------
     Diagnostics
     """
     th = thresholds or Thresholds()
-    paths = latent_paths(built, d)
+    paths = latent_paths(built, d) if paths is None else paths
     arrays = _identified(built, d, paths, idata)
     conv = post.summarise_arrays(arrays)
     n_chain, n_draw = post.n_chains_draws(idata)

@@ -23,18 +23,6 @@ from nstress.model.build import BuiltModel
 
 log = logging.getLogger(__name__)
 SAMPLERS = ("auto", "nutpie", "pymc")
-KEEP_DETERMINISTICS = (
-    "diet_level",
-    "diet_steps",
-    "onset",
-    "duration",
-    "kappa",
-    "tau_rec",
-    "discrimination",
-    "half_life",
-    "growth",
-    "walk_corr",
-)
 
 
 @dataclass
@@ -87,6 +75,16 @@ class FitResult:
     timings: dict[str, float]
 
 
+def _stored_names(built: BuiltModel) -> list[str]:
+    """Free variables plus the deterministics that products and diagnostics read."""
+    from nstress.model.diagnose import HYPER
+    from nstress.model.draws import PARAM_NAMES
+
+    names = [v.name for v in built.model.free_RVs]
+    names += [n for n in (*PARAM_NAMES, *HYPER) if n in built.model.named_vars]
+    return list(dict.fromkeys(names))
+
+
 def resolve_sampler(name: str) -> str:
     """Return the sampler to use; check that an explicitly requested one is installed."""
     if name not in SAMPLERS:
@@ -123,20 +121,18 @@ def sample(built: BuiltModel, settings: SamplerSettings | None = None) -> FitRes
     which = resolve_sampler(s.sampler)
     cores = s.cores or min(s.chains, 2)
     timings: dict[str, float] = {}
+    kw = dict(s.kwargs)
+    if s.target_accept is not None:
+        kw.setdefault("target_accept", s.target_accept)
     try:
         with threadpool_limits(limits=1):
             if which == "nutpie":
                 import nutpie
 
                 t0 = time.perf_counter()
-                keep = [v.name for v in built.model.free_RVs] + [
-                    n for n in KEEP_DETERMINISTICS if n in built.model.named_vars
-                ]
+                keep = _stored_names(built)
                 compiled = nutpie.compile_pymc_model(built.model, backend="numba", var_names=keep)
                 timings["compile_s"] = time.perf_counter() - t0
-                kw = dict(s.kwargs)
-                if s.target_accept is not None:
-                    kw.setdefault("target_accept", s.target_accept)
                 t0 = time.perf_counter()
                 idata = nutpie.sample(
                     compiled,
@@ -151,9 +147,6 @@ def sample(built: BuiltModel, settings: SamplerSettings | None = None) -> FitRes
                 )
                 timings["sample_s"] = time.perf_counter() - t0
             else:
-                kw = dict(s.kwargs)
-                if s.target_accept is not None:
-                    kw.setdefault("target_accept", s.target_accept)
                 t0 = time.perf_counter()
                 with built.model:
                     idata = pm.sample(

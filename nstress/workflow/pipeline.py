@@ -198,8 +198,8 @@ def fit_tables(
     t0 = time.perf_counter()
     seed = int(settings.seed)
     draws = collect(built, fit.idata, max_draws=cfg.product_draws, seed=seed)
-    diag = diagnose(built, fit.idata, draws, thresholds, seed=seed)
     paths = latent_paths(built, draws)
+    diag = diagnose(built, fit.idata, draws, thresholds, seed=seed, paths=paths)
     eps = built.priors["epsilon_loss"]
     prods = compute_products(
         built, draws, paths, epsilon_mu=eps["mu"], epsilon_sd=eps["sigma"], seed=seed
