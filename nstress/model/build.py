@@ -29,6 +29,7 @@ import pymc as pm
 import pytensor.tensor as pt
 
 from nstress import dims
+from nstress.errors import ConfigError
 from nstress.model import forward
 from nstress.model.priors import resolve_priors
 from nstress.prep.timebase import TimeBase
@@ -46,8 +47,15 @@ class ModelSpec:
         Prior overrides (see :mod:`nstress.model.priors`).
     walk
         ``"noncentred"`` or ``"centred"`` parameterisation of the diet walk.
+    walk_increments
+        ``"student_t"`` (heavy-tailed: a diet shift is one large step) or
+        ``"normal"`` (Gaussian; the known-answer case of a local-level model).
     walk_scale_per_animal
-        Whether each animal's walk has its own scale (lets diet shifters move).
+        Whether each animal's walk has its own scale (another way to let
+        diet shifters move; it makes a funnel with the increments).
+    episodes
+        ``False`` switches catabolism off (diet-only model: the likelihood is
+        the no-episode component alone); a known-answer and diagnostic case.
     reference_tissue
         Tissue whose discrimination is fixed at its prior mean (identifies
         the diet level); default: a keratin tissue if present, else the
@@ -58,7 +66,9 @@ class ModelSpec:
     priors: dict[str, dict[str, Any]] = field(default_factory=dict)
     reference_tissue: str | None = None
     walk: str = "noncentred"
-    walk_scale_per_animal: bool = True
+    walk_increments: str = "student_t"
+    walk_scale_per_animal: bool = False
+    episodes: bool = True
 
 
 @dataclass
@@ -116,6 +126,13 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
     BuiltModel
     """
     spec = spec or ModelSpec()
+    if spec.walk not in ("noncentred", "centred"):
+        raise ConfigError(f"unknown walk {spec.walk!r}", key="model.walk")
+    if spec.walk_increments not in ("student_t", "normal"):
+        raise ConfigError(
+            f"unknown walk_increments {spec.walk_increments!r}; expected 'student_t' or 'normal'",
+            key="model.walk_increments",
+        )
     pr = resolve_priors(spec.priors)
     grid = forward.make_grid(tb, spec.knot_days)
     I, G = tb.n_individuals, len(tb.groups)  # noqa: E741
@@ -186,7 +203,13 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             )
             raw = pt.stack([s_n, s_c], axis=-1) * (step_mask[..., None] > 0)
         else:
-            z_w = pm.Normal("z_walk", 0.0, 1.0, dims=(dims.INDIVIDUAL, "knot_step", dims.ISOTOPE))
+            zdims = (dims.INDIVIDUAL, "knot_step", dims.ISOTOPE)
+            if spec.walk_increments == "student_t":
+                z_w = pm.StudentT(
+                    "z_walk", nu=pr["walk_df"]["value"], mu=0.0, sigma=1.0, dims=zdims
+                )
+            else:
+                z_w = pm.Normal("z_walk", 0.0, 1.0, dims=zdims)
             step_n = z_w[..., 0]
             step_c = rho * z_w[..., 0] + pt.sqrt(1.0 - rho**2) * z_w[..., 1]
             raw = pt.stack([step_n, step_c], axis=-1) * scale
@@ -271,9 +294,12 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         )
         pred = forward.predict(tb, grid, params, xp=pt)
         ll0, ll1 = forward.episode_logliks(tb, pred, gamma, extra_sd, xp=pt)
-        lp0 = pt.log1p(-pi[gi]) + ll0
-        lp1 = pt.log(pi[gi]) + ll1
-        pm.Potential("mixture", pt.sum(pt.logaddexp(lp0, lp1)))
+        if spec.episodes:
+            lp0 = pt.log1p(-pi[gi]) + ll0
+            lp1 = pt.log(pi[gi]) + ll1
+            pm.Potential("mixture", pt.sum(pt.logaddexp(lp0, lp1)))
+        else:
+            pm.Potential("no_episode", pt.sum(ll0))
         # P(episode | continuous parameters) per draw is recomputed after sampling from the
         # stored parameters with the same equations (nstress.model.draws), which keeps the
         # forward model out of the compiled "expand" function.

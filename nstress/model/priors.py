@@ -101,6 +101,13 @@ PRIORS: dict[str, dict[str, Any]] = {
         "doc": "SD of diet random-walk increments per knot (‰), per isotope and group",
         "source": "common practice",
     },
+    "walk_df": {
+        "dist": "fixed",
+        "value": 3.0,
+        "doc": "degrees of freedom of Student-t diet increments: most steps small, an "
+        "occasional diet shift large, without a per-animal scale (a funnel for NUTS)",
+        "source": "common practice",
+    },
     "walk_scale_log_sd": {
         "dist": "fixed",
         "value": 0.7,

@@ -68,7 +68,9 @@ class FitConfig:
         d = asdict(self)
         d.pop("cores")
         d.pop("progress")
-        d["sampler"] = {k: v for k, v in d["sampler"].items() if k not in ("cores", "progress")}
+        d["sampler"] = {
+            k: v for k, v in d["sampler"].items() if k not in ("cores", "progress", "backend")
+        }
         return d
 
 
@@ -105,6 +107,7 @@ def versions() -> dict[str, str]:
         "arviz",
         "xarray",
         "nutpie",
+        "jax",
         "matplotlib",
     ):
         try:
@@ -241,7 +244,7 @@ def fit_tables(
         "nstress_version": __version__,
         "inputs": intake.sources,
         "config": result_cfg,
-        "execution": {"cores": cfg.cores},
+        "execution": {"cores": cfg.cores, "backend": fit.backend},
         "seed": seed,
         "input_hash": digest,
         "sampler": fit.sampler,
