@@ -124,8 +124,9 @@ PRIORS: dict[str, dict[str, Any]] = {
     },
     "growth_log_mean_sd": {
         "dist": "fixed",
-        "value": 0.15,
-        "doc": "prior SD of a group's mean log growth multiplier",
+        "value": 0.1,
+        "doc": "prior SD of a group's mean log growth multiplier (about 10 %): growth and "
+        "episode onset trade off in keratin-only animals",
         "source": "common practice",
     },
     "extra_sd": {
