@@ -31,11 +31,12 @@ def small_fit(tmp_path_factory):
         duration_days=(25.0, 45.0),
         groups=("colony_A",),
         breeding_dates=("2024-11-28",),
+        diet_means=((12.0, -17.0),),
     )
     sim = simulate_colony(spec)
     write_simulation(sim, root / "data")
     cfg = FitConfig(
-        sampler={"draws": 150, "tune": 200, "chains": 2, "seed": 11},
+        sampler={"draws": 200, "tune": 500, "chains": 2, "seed": 11},
         progress=False,
         product_draws=150,
     )

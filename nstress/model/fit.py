@@ -92,19 +92,6 @@ def _stored_names(built: BuiltModel) -> list[str]:
     return list(dict.fromkeys(names))
 
 
-UNJITTERED = ("growth_log", "growth_log_mean", "diet_level", "diet_level_group")
-"""Centred variables that start at their prior centre, not jittered.
-
-A jitter of ±1 on the unconstrained scale multiplies a keratin growth rate by
-up to e; a chain started there settled in a distant mode (growth +43 %, onsets
-20 d late, larger residual SD) while the other found the truth.
-"""
-
-
-def _jittered(built: BuiltModel) -> set:
-    return {v for v in built.model.free_RVs if v.name not in UNJITTERED}
-
-
 def resolve_sampler(name: str) -> str:
     """Return the sampler to use; check that an explicitly requested one is installed."""
     if name not in SAMPLERS:
@@ -179,7 +166,6 @@ def sample(built: BuiltModel, settings: SamplerSettings | None = None) -> FitRes
                     built.model,
                     backend=backend,
                     var_names=keep,
-                    jitter_rvs=_jittered(built),
                     **extra,
                 )
                 timings["compile_s"] = time.perf_counter() - t0
