@@ -3,8 +3,9 @@
 One model for the whole colony, vectorised over individuals (no per-animal
 sub-models). Per individual i:
 
-* diet path D_i(t): level b_i + Gaussian random walk on coarse knots with
-  correlated (δ15N, δ13C) increments and a per-animal walk scale;
+* diet path D_i(t): level b_i + random walk on coarse knots with correlated
+  (δ15N, δ13C) Student-t increments and a pooled scale (a diet shift is one
+  large step);
 * one catabolic episode (onset, duration, rate κ_i, recovery τ_i) whose
   *presence* is a discrete indicator marginalised exactly: the individual's
   likelihood is the two-component mixture
@@ -14,7 +15,9 @@ sub-models). Per individual i:
   its discrimination Δ_k; keratin growth multiplier r_i is a parameter;
 * observation y ~ Normal(Y, sqrt(sd_row² + σ_k²)).
 
-Every pooled quantity is non-centred. Dims: ``individual``, ``bin``,
+Pooled quantities are non-centred, except the diet level and the growth
+multipliers, which each animal's samples pin down (centred is better
+conditioned there). Dims: ``individual``, ``bin``,
 ``tissue``, ``isotope``, ``episode``, plus ``knot_step``, ``group``,
 ``keratin_tissue``.
 """
