@@ -56,6 +56,8 @@ def child(table: Path, out: Path, sampler: str, draws: int, tune: int, seed: int
         "ess_bulk_min": ess,
         "ess_per_s": ess / t["sample_s"] if t.get("sample_s") else None,
         "ess_per_s_wall": ess / wall,
+        # min bulk ESS per quantity group (the overall min is set by the worst group)
+        "ess_bulk_min_by_group": {k: v["ess_bulk_min"] for k, v in conv.items()},
         "divergences": diag["sampler"].get("divergences", 0),
         "tree_depth_mean": diag["sampler"].get("tree_depth_mean"),
         "diagnostics_ok": diag["ok"],
