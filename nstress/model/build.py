@@ -56,6 +56,7 @@ class ModelSpec:
     walk_increments
         ``"student_t"`` (heavy-tailed: a diet shift is one large step) or
         ``"normal"`` (Gaussian; the known-answer case of a local-level model).
+        Applies to the non-centred walk; the centred walk is always Gaussian.
     walk_scale_per_animal
         Whether each animal's walk has its own scale (another way to let
         diet shifters move; it makes a funnel with the increments).

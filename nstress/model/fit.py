@@ -23,6 +23,8 @@ from nstress.model.build import BuiltModel
 
 log = logging.getLogger(__name__)
 SAMPLERS = ("auto", "nutpie", "pymc")
+EXECUTION_ONLY = ("cores", "progress", "backend")
+"""Sampler settings that change how a fit runs, not its results (kept out of hashes)."""
 
 
 @dataclass
@@ -64,11 +66,7 @@ class SamplerSettings:
 
     def result_settings(self) -> dict[str, Any]:
         """Return the settings that change results (for hashing and provenance)."""
-        d = asdict(self)
-        d.pop("cores")
-        d.pop("progress")
-        d.pop("backend")
-        return d
+        return {k: v for k, v in asdict(self).items() if k not in EXECUTION_ONLY}
 
 
 @dataclass
@@ -92,22 +90,31 @@ def _stored_names(built: BuiltModel) -> list[str]:
     return list(dict.fromkeys(names))
 
 
-def resolve_sampler(name: str) -> str:
-    """Return the sampler to use; check that an explicitly requested one is installed."""
-    if name not in SAMPLERS:
+def _resolve_optional(name: str, key: str, choices: tuple[str, ...], fallback: str) -> str:
+    """Resolve a setting whose first real choice needs an optional package of the same name.
+
+    ``choices`` is ``("auto", preferred, fallback)``; ``"auto"`` takes the preferred
+    choice when its package is installed, else ``fallback``.
+    """
+    setting = key.split(".")[-1]
+    if name not in choices:
+        raise ConfigError(f"unknown {setting} {name!r}; expected one of {list(choices)}", key=key)
+    preferred = choices[1]
+    installed = importlib.util.find_spec(preferred) is not None
+    if name == preferred and not installed:
         raise ConfigError(
-            f"unknown sampler {name!r}; expected one of {list(SAMPLERS)}", key="sampler.sampler"
-        )
-    has_nutpie = importlib.util.find_spec("nutpie") is not None
-    if name == "nutpie" and not has_nutpie:
-        raise ConfigError(
-            "sampler 'nutpie' is not installed; install it with `pip install nstress[fast]` "
-            "or set sampler = 'pymc'",
-            key="sampler.sampler",
+            f"{setting} {preferred!r} is not installed; install it with "
+            f"`pip install nstress[fast]` or set {setting} = {fallback!r}",
+            key=key,
         )
     if name == "auto":
-        return "nutpie" if has_nutpie else "pymc"
+        return preferred if installed else fallback
     return name
+
+
+def resolve_sampler(name: str) -> str:
+    """Return the sampler to use; check that an explicitly requested one is installed."""
+    return _resolve_optional(name, "sampler.sampler", SAMPLERS, "pymc")
 
 
 BACKENDS = ("auto", "jax", "numba")
@@ -115,20 +122,7 @@ BACKENDS = ("auto", "jax", "numba")
 
 def resolve_backend(name: str) -> str:
     """Return nutpie's compile backend; check that an explicitly requested one is installed."""
-    if name not in BACKENDS:
-        raise ConfigError(
-            f"unknown backend {name!r}; expected one of {list(BACKENDS)}", key="sampler.backend"
-        )
-    has_jax = importlib.util.find_spec("jax") is not None
-    if name == "jax" and not has_jax:
-        raise ConfigError(
-            "backend 'jax' is not installed; install it with `pip install nstress[fast]` "
-            "or set backend = 'numba'",
-            key="sampler.backend",
-        )
-    if name == "auto":
-        return "jax" if has_jax else "numba"
-    return name
+    return _resolve_optional(name, "sampler.backend", BACKENDS, "numba")
 
 
 def sample(built: BuiltModel, settings: SamplerSettings | None = None) -> FitResult:

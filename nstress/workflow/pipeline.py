@@ -65,12 +65,12 @@ class FitConfig:
 
     def result_config(self) -> dict[str, Any]:
         """Return the settings that change results, as plain data (hashed for caching)."""
+        from nstress.model.fit import EXECUTION_ONLY
+
         d = asdict(self)
         d.pop("cores")
         d.pop("progress")
-        d["sampler"] = {
-            k: v for k, v in d["sampler"].items() if k not in ("cores", "progress", "backend")
-        }
+        d["sampler"] = {k: v for k, v in d["sampler"].items() if k not in EXECUTION_ONLY}
         return d
 
 
