@@ -7,9 +7,11 @@ sub-models). Per individual i:
   (δ15N, δ13C) Student-t increments and a pooled scale (a diet shift is one
   large step);
 * one catabolic episode (onset, duration, rate κ_i, recovery τ_i) whose
-  *presence* is a discrete indicator marginalised exactly: the individual's
-  likelihood is the two-component mixture
-  (1 − π_g)·p(y_i | no episode) + π_g·p(y_i | episode);
+  *presence* is a discrete indicator and whose *onset* is a discrete choice
+  among candidate onsets c_m (every few days over what the samples see),
+  both summed out exactly: the individual's likelihood is
+  (1 − π_g)·p(y_i | no episode) + π_g·Σ_m w_im·p(y_i | episode at c_m),
+  with w_im the group's onset prior Normal(μ_on,g, σ_on) on the grid;
 * body pool P = D + E·(1, γ_g); tissue k sees P through its kernel
   (one-compartment weights for blood, soft growth windows for keratin) plus
   its discrimination Δ_k; keratin growth multiplier r_i is a parameter;
@@ -49,6 +51,9 @@ class ModelSpec:
     ----------
     knot_days
         Knot spacing of the diet random walk (days).
+    onset_step_days
+        Spacing of the candidate episode onsets that the likelihood sums
+        over (days).
     priors
         Prior overrides (see :mod:`nstress.model.priors`).
     walk
@@ -70,6 +75,7 @@ class ModelSpec:
     """
 
     knot_days: float = forward.DEFAULT_KNOT_DAYS
+    onset_step_days: float = forward.DEFAULT_ONSET_STEP_DAYS
     priors: dict[str, dict[str, Any]] = field(default_factory=dict)
     reference_tissue: str | None = None
     walk: str = "noncentred"
@@ -118,6 +124,44 @@ def data_centre(tb: TimeBase) -> np.ndarray:
     return np.where(np.isnan(c), 0.0, c)
 
 
+def onset_log_weights(grid: forward.Grid, tb: TimeBase, mu: Any, sd: Any, xp: Any = np) -> Any:
+    """Log prior weights ``(I, M)`` of the candidate onsets, normalised per individual.
+
+    The onset prior Normal(μ_on,g, σ_on) (group time) is discretised on the
+    candidate grid with σ widened by the grid's own spread,
+    σ_eff² = σ_on² + step²/12 (a uniform spread within a grid cell), so that
+    the weights stay smooth in μ and σ even when σ_on is below the spacing.
+
+    Parameters
+    ----------
+    grid
+        Grid with the candidate onsets.
+    tb
+        Time base (for each individual's origin offset).
+    mu
+        ``(I,)`` group mean onset of each individual's group (days since the
+        earliest origin), or ``(S, I)`` for S draws.
+    sd
+        Between-animal SD of onset (days), scalar or ``(S,)``.
+    xp
+        Array namespace.
+    """
+    c_abs = grid.onset_days + tb.origin_offset[:, None]  # (I, M)
+    sd = sd if xp is not np else np.asarray(sd, float)
+    sd_eff = xp.sqrt(sd**2 + grid.onset_step**2 / 12.0)
+    if xp is np and np.ndim(mu) == 2:
+        z = (c_abs[None] - mu[..., None]) / sd_eff.reshape(-1, 1, 1)
+    else:
+        z = (c_abs - mu[:, None]) / sd_eff
+    logw = xp.where(grid.onset_mask, -0.5 * z**2, -1e10)
+    if xp is np:
+        top = logw.max(axis=-1, keepdims=True)
+        lse = top + np.log(np.exp(logw - top).sum(axis=-1, keepdims=True))
+    else:
+        lse = pt.logsumexp(logw, axis=-1, keepdims=True)
+    return logw - lse
+
+
 def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
     """Build the colony model.
 
@@ -141,7 +185,9 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             key="model.walk_increments",
         )
     pr = resolve_priors(spec.priors)
-    grid = forward.make_grid(tb, spec.knot_days)
+    if not spec.onset_step_days > 0:
+        raise ConfigError("onset_step_days must be > 0", key="model.onset_step_days")
+    grid = forward.make_grid(tb, spec.knot_days, onset_step=spec.onset_step_days)
     I, G = tb.n_individuals, len(tb.groups)  # noqa: E741
     gi = tb.group_index
     n_tis = len(tb.tissues)
@@ -224,13 +270,13 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             "diet_steps", raw, dims=(dims.INDIVIDUAL, "knot_step", dims.ISOTOPE)
         )
 
-        # ---- episode timing and size (non-centred) ---------------------------
+        # ---- episode timing: onset summed exactly over candidate onsets -------
+        # A continuous onset per animal made NUTS chains settle in different
+        # modes (an episode parked where no sample sees it, or a colony-wide
+        # timing shift traded against growth); summing over the grid removes them.
         mu_on = pm.Normal("onset_group", mu=g_mid, sigma=g_half, dims=dims.GROUP)
         sd_on = pm.HalfNormal("onset_sd", sigma=pr["onset_sd"]["sigma"])
-        z_on = pm.Normal("z_onset", 0.0, 1.0, dims=dims.INDIVIDUAL)
-        onset = pm.Deterministic(
-            "onset", mu_on[gi] - tb.origin_offset + sd_on * z_on, dims=dims.INDIVIDUAL
-        )
+        onset_log_w = onset_log_weights(grid, tb, mu_on[gi], sd_on, xp=pt)
 
         def _lognormal_group(name: str, key: str) -> Any:
             m = pm.Normal(
@@ -301,7 +347,7 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         params = forward.Params(
             baseline=baseline,
             steps=steps,
-            onset=onset,
+            onset=grid.onset_days,
             duration=duration,
             kappa=kappa,
             tau_rec=tau_rec,
@@ -314,7 +360,7 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         ll0, ll1 = forward.episode_logliks(tb, pred, gamma, extra_sd, xp=pt)
         if spec.episodes:
             lp0 = pt.log1p(-pi[gi]) + ll0
-            lp1 = pt.log(pi[gi]) + ll1
+            lp1 = pt.log(pi[gi]) + pt.logsumexp(onset_log_w + ll1, axis=1)
             pm.Potential("mixture", pt.sum(pt.logaddexp(lp0, lp1)))
         else:
             pm.Potential("no_episode", pt.sum(ll0))

@@ -16,12 +16,13 @@ import numpy as np
 from nstress import equations as eq
 from nstress.model import forward
 from nstress.model import posterior as post
-from nstress.model.build import BuiltModel
+from nstress.model.build import BuiltModel, onset_log_weights
 
 PARAM_NAMES = (
     "diet_level",
     "diet_steps",
-    "onset",
+    "onset_group",
+    "onset_sd",
     "duration",
     "kappa",
     "tau_rec",
@@ -40,7 +41,12 @@ class Draws:
 
     ``chain_draw`` keeps ``(n_chains, n_per_chain)`` so that arrays can be
     reshaped back for R-hat. ``episode`` is a sampled indicator per draw and
-    individual (seeded), drawn from ``p_cond``.
+    individual (seeded), drawn from ``p_cond``. The model sums the onset over
+    candidate onsets; ``params["onset"]`` holds one onset per draw and
+    individual drawn (seeded) from its conditional probabilities given the
+    draw's parameters and an episode, and ``onset_prob`` ``(I, M)`` is the
+    posterior probability of each candidate onset given an episode
+    (Rao-Blackwellised: the mean of those conditional probabilities).
     """
 
     params: dict[str, np.ndarray]
@@ -48,6 +54,7 @@ class Draws:
     p_cond: np.ndarray  # (S, I)
     episode: np.ndarray  # (S, I) bool
     gamma_ind: np.ndarray  # (S, I)
+    onset_prob: np.ndarray | None = None  # (I, M)
 
     @property
     def n(self) -> int:
@@ -76,26 +83,41 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
     n_chain, n_draw = post.n_chains_draws(idata)
     per_chain = max(1, max_draws // n_chain)
     arrays = post.subset_draws(idata, list(PARAM_NAMES), max_draws=per_chain)
-    cd = arrays["onset"].shape[:2]
+    cd = arrays["duration"].shape[:2]
     flat = {k: v.reshape((-1,) + v.shape[2:]) for k, v in arrays.items()}
-    gi = built.timebase.group_index
+    tb, grid = built.timebase, built.grid
+    gi = tb.group_index
+    n_s, n_i = flat["duration"].shape
     d = Draws(
         params=flat,
         chain_draw=cd,
-        p_cond=np.zeros((flat["onset"].shape[0], len(gi))),
-        episode=np.zeros((flat["onset"].shape[0], len(gi)), bool),
+        p_cond=np.zeros((n_s, n_i)),
+        episode=np.zeros((n_s, n_i), bool),
         gamma_ind=flat["gamma"][:, gi],
     )
-    # P(episode | parameters) per draw, with the model's own likelihood (forward.py)
+    # P(episode | parameters) and P(onset | parameters, episode) per draw, with the
+    # model's own likelihood (forward.py) and onset weights (build.py)
     pi = flat["p_episode_group"][:, gi]
-    for s in range(d.n):
-        pred = predictions(built, d, s)
-        ll0, ll1 = forward.episode_logliks(
-            built.timebase, pred, d.gamma_ind[s], flat["extra_sd"][s]
-        )
-        logit = np.log(pi[s]) - np.log1p(-pi[s]) + ll1 - ll0
-        d.p_cond[s] = 0.5 * (1.0 + np.tanh(0.5 * logit))
+    logw = onset_log_weights(grid, tb, flat["onset_group"][:, gi], flat["onset_sd"])
     rng = np.random.default_rng(seed)
+    onset = np.zeros((n_s, n_i))
+    prob = np.zeros(grid.onset_days.shape)
+    for s in range(n_s):
+        pred = predictions(built, d, s, onset=grid.onset_days)
+        ll0, ll1 = forward.episode_logliks(tb, pred, d.gamma_ind[s], flat["extra_sd"][s])
+        lm = logw[s] + ll1 - ll0[:, None]  # (I, M)
+        top = lm.max(axis=1, keepdims=True)
+        q = np.exp(lm - top)
+        tot = q.sum(axis=1, keepdims=True)
+        q /= tot
+        logit = np.log(pi[s]) - np.log1p(-pi[s]) + top[:, 0] + np.log(tot[:, 0])
+        d.p_cond[s] = 0.5 * (1.0 + np.tanh(0.5 * logit))
+        m = (rng.random((n_i, 1)) > np.cumsum(q, axis=1)).sum(axis=1)
+        m = np.minimum(m, q.shape[1] - 1)
+        onset[s] = grid.onset_days[np.arange(n_i), m]
+        prob += q
+    flat["onset"] = onset
+    d.onset_prob = prob / max(n_s, 1)
     d.episode[:] = rng.random(d.p_cond.shape) < d.p_cond
     return d
 
@@ -123,13 +145,19 @@ def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:
     return {"diet": diet, "enrich": enrich, "inside": inside}
 
 
-def predictions(built: BuiltModel, d: Draws, idx: np.ndarray) -> forward.Prediction:
-    """Return the expected tissue values of one draw, via :func:`forward.predict`."""
+def predictions(
+    built: BuiltModel, d: Draws, idx: int, onset: np.ndarray | None = None
+) -> forward.Prediction:
+    """Return the expected tissue values of one draw, via :func:`forward.predict`.
+
+    ``onset`` overrides the draw's onset, e.g. with the candidate onsets
+    ``(I, M)`` of the grid.
+    """
     p = d.params
     params = forward.Params(
         baseline=p["diet_level"][idx],
         steps=p["diet_steps"][idx],
-        onset=p["onset"][idx],
+        onset=p["onset"][idx] if onset is None else onset,
         duration=p["duration"][idx],
         kappa=p["kappa"][idx],
         tau_rec=p["tau_rec"][idx],

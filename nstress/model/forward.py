@@ -20,6 +20,9 @@ from nstress.prep.timebase import TimeBase
 
 DEFAULT_KNOT_DAYS = 16.0
 DEFAULT_KERATIN_POINTS = 6
+DEFAULT_ONSET_STEP_DAYS = 6.0
+ONSET_LEAD_DAYS = 30.0
+"""Candidate onsets start this long before an individual's earliest sampled time."""
 
 
 @dataclass
@@ -46,8 +49,19 @@ class Grid:
         Tissue indices of the blood tissues present.
     blood_tissue_slot
         ``(I, Nb)`` position of each draw's tissue in ``blood_tissues``.
+    onset_days
+        ``(I, M)`` candidate episode onsets (days since each individual's
+        origin), every ``onset_step`` days across the time its samples can
+        see (see :func:`onset_grid`); the model sums over them exactly.
+    onset_mask
+        ``(I, M)`` which candidates are real (rows are padded to M).
+    onset_step
+        Spacing of the candidate onsets (days).
+    onset_ref
+        ``(I,)`` middle of each individual's sampled span (days), the
+        reference time of the separated exponentials of the episode response.
     keratin_points
-        Quadrature points per keratin growth window.
+        Quadrature points per keratin growth window (diet path).
     """
 
     knots: np.ndarray
@@ -59,6 +73,10 @@ class Grid:
     blood_individuals: np.ndarray
     blood_tissues: list[int]
     blood_tissue_slot: np.ndarray
+    onset_days: np.ndarray
+    onset_mask: np.ndarray
+    onset_step: float
+    onset_ref: np.ndarray
     keratin_points: int = DEFAULT_KERATIN_POINTS
 
     @property
@@ -76,8 +94,9 @@ def make_grid(
     tb: TimeBase,
     knot_days: float = DEFAULT_KNOT_DAYS,
     keratin_points: int = DEFAULT_KERATIN_POINTS,
+    onset_step: float = DEFAULT_ONSET_STEP_DAYS,
 ) -> Grid:
-    """Knots every ``knot_days`` across the padded grid, the walk basis and blood lags.
+    """Knots every ``knot_days`` across the padded grid, the walk basis, blood lags, onsets.
 
     Parameters
     ----------
@@ -86,7 +105,9 @@ def make_grid(
     knot_days
         Knot spacing of the diet random walk (days).
     keratin_points
-        Quadrature points per keratin growth window.
+        Quadrature points per keratin growth window (diet path).
+    onset_step
+        Spacing of the candidate episode onsets (days), see :func:`onset_grid`.
     """
     span = tb.T * tb.bin_width
     n_knots = max(int(np.ceil(span / knot_days)) + 1, 2)
@@ -96,6 +117,7 @@ def make_grid(
     blood_tissues = [j for j, c in enumerate(tb.tissue_class) if c == "blood"]
     slot = np.zeros(tb.tissue_class.__len__(), dtype=np.int64)
     slot[blood_tissues] = np.arange(len(blood_tissues))
+    onsets, onset_mask = onset_grid(tb, onset_step)
     return Grid(
         knots=knots,
         walk=eq.anchored_walk_matrix(n_knots, anchor),
@@ -106,8 +128,55 @@ def make_grid(
         blood_individuals=np.flatnonzero(tb.blood.mask.any(axis=1)),
         blood_tissues=blood_tissues,
         blood_tissue_slot=slot[tb.blood.tissue],
+        onset_days=onsets,
+        onset_mask=onset_mask,
+        onset_step=float(onset_step),
+        onset_ref=0.5 * np.add(*sampled_span(tb)),
         keratin_points=int(keratin_points),
     )
+
+
+def sampled_span(tb: TimeBase) -> tuple[np.ndarray, np.ndarray]:
+    """Earliest and latest time each individual's samples see (days since its origin).
+
+    Keratin windows are taken at the tissue's nominal growth (multiplier 1);
+    a blood draw sees its own date (and, fading, the weeks before it).
+    """
+    b, k = tb.blood, tb.keratin
+    lo = np.concatenate(
+        [np.where(b.mask, b.t, np.inf), np.where(k.mask, k.t - k.h_hi, np.inf)], axis=1
+    ).min(axis=1)
+    hi = np.concatenate(
+        [np.where(b.mask, b.t, -np.inf), np.where(k.mask, k.t - k.h_lo, -np.inf)], axis=1
+    ).max(axis=1)
+    ok = np.isfinite(lo) & np.isfinite(hi)
+    return np.where(ok, lo, 0.0), np.where(ok, hi, 0.0)
+
+
+def onset_grid(tb: TimeBase, step: float) -> tuple[np.ndarray, np.ndarray]:
+    """Candidate episode onsets per individual, padded to a common count.
+
+    From :data:`ONSET_LEAD_DAYS` before the earliest sampled time (not before
+    the grid start) to the latest sampled time, every ``step`` days. An
+    episode starting after the last sample leaves no trace in the data, so it
+    is not a candidate.
+
+    Returns
+    -------
+    tuple
+        ``onsets`` ``(I, M)`` (days since each individual's origin) and a
+        ``(I, M)`` bool mask of the real candidates.
+    """
+    if not step > 0:
+        raise ValueError("onset step must be > 0 days")
+    lo, hi = sampled_span(tb)
+    lo = np.maximum(lo - ONSET_LEAD_DAYS, 0.0)
+    hi = np.maximum(hi, lo)
+    n = np.floor((hi - lo) / step).astype(int) + 1
+    m = np.arange(max(int(n.max(initial=1)), 1))
+    onsets = lo[:, None] + step * m[None, :]
+    mask = m[None, :] < n[:, None]
+    return np.where(mask, onsets, lo[:, None]), mask
 
 
 def _anchor_knots(tb: TimeBase, knots: np.ndarray) -> np.ndarray:
@@ -165,9 +234,10 @@ class Prediction:
     """Expected tissue values.
 
     ``blood0``/``keratin0`` are ``(I, N, 2)`` without an episode;
-    ``blood_e``/``keratin_e`` are ``(I, N)``, the episode's δ15N
-    contribution (the δ13C contribution is γ times it).
-    ``diet`` ``(I, T, 2)`` and ``enrich`` ``(I, T)`` are the latent paths.
+    ``blood_e``/``keratin_e`` are the episode's δ15N contribution (the δ13C
+    contribution is γ times it): ``(I, N)`` for one onset per individual, or
+    ``(I, N, M)`` for M candidate onsets. ``diet`` ``(I, T, 2)`` and
+    ``enrich`` (``(I, T)`` or ``(I, T, M)``) are the latent paths.
     """
 
     diet: Any
@@ -183,10 +253,17 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
 
     * Diet D(t): level + knot random walk, piecewise linear in time.
     * Enrichment E(t): closed form (:func:`nstress.equations.enrichment`).
-    * Blood: one-compartment weights on the bins
-      (:func:`nstress.equations.blood_from_filtered`) applied to D and E.
-    * Keratin: D and E averaged over the segment's growth window
-      [t_c − h_hi/r, t_c − h_lo/r] by the midpoint rule.
+    * Blood: the diet through one-compartment weights on the bins
+      (:func:`nstress.equations.blood_from_filtered`); the enrichment through
+      the exact one-compartment response
+      (:func:`nstress.equations.enrichment_incorporated`).
+    * Keratin: the diet averaged over the segment's growth window
+      [t_c − h_hi/r, t_c − h_lo/r] by the midpoint rule; the enrichment
+      averaged exactly (:func:`nstress.equations.enrichment_window_mean`).
+
+    ``p.onset`` is ``(I,)`` (one onset per individual) or ``(I, M)`` (the
+    candidate onsets of :attr:`Grid.onset_days`); the episode outputs then
+    carry a trailing ``M`` axis.
 
     Parameters
     ----------
@@ -205,27 +282,26 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
     """
     n_ind = tb.n_individuals
     knot_values, diet = eq.diet_path(p.baseline, p.steps, grid.walk, grid.basis, xp=xp)
-    t = tb.bin_mid[None, :]
-    onset, duration = p.onset[:, None], p.duration[:, None]
-    kappa, tau = p.kappa[:, None], p.tau_rec[:, None]
-    enrich = eq.enrichment(t, onset, duration, kappa, tau, xp=xp)
+    single = p.onset.ndim == 1
+    on = (p.onset[:, None] if single else p.onset)[:, None, :]  # (I, 1, M)
+    duration = p.duration[:, None, None]
+    kappa, tau = p.kappa[:, None, None], p.tau_rec[:, None, None]
+    enrich = eq.enrichment(tb.bin_mid[None, :, None], on, duration, kappa, tau, xp=xp)
 
-    # blood: one-compartment filter of the pool on the bins, for animals with blood
+    # blood: one-compartment filter of the diet on the bins, for animals with blood
     b = tb.blood
-    pool = xp.concatenate([diet, enrich[..., None]], axis=-1)  # (I, T, 3)
-    blood_vals = []
     with_blood = grid.blood_individuals
     if with_blood.size:
-        pool_b = pool[with_blood]  # (Ib, T, 3)
+        pool_b = diet[with_blood]  # (Ib, T, 2)
         filtered = []
         for k in grid.blood_tissues:
             F = eq.exponential_filter_matrix(tb.T, tb.bin_width, p.rate[k], xp=xp)
-            filtered.append(xp.tensordot(pool_b, F, axes=[[1], [1]]))  # (Ib, 3, T)
-        S = xp.stack(filtered)  # (Kb, Ib, 3, T)
+            filtered.append(xp.tensordot(pool_b, F, axes=[[1], [1]]))  # (Ib, 2, T)
+        S = xp.stack(filtered)  # (Kb, Ib, 2, T)
         kb = grid.blood_tissue_slot[with_blood]  # (Ib, Nb)
         ib = np.arange(with_blood.size)[:, None]
         bin_b = grid.blood_bin[with_blood]
-        s_prev = S[kb, ib, :, np.maximum(bin_b - 1, 0)]  # (Ib, Nb, 3)
+        s_prev = S[kb, ib, :, np.maximum(bin_b - 1, 0)]  # (Ib, Nb, 2)
         p_here = pool_b[ib, bin_b]
         p_first = pool_b[:, :1, :]
         rate_obs = p.rate[b.tissue[with_blood]]
@@ -239,33 +315,40 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
             tb.bin_width,
             (bin_b >= 1).astype(float),
             xp=xp,
-        )  # (Ib, Nb, 3)
-        full = xp.zeros((n_ind, b.n, 3))
+        )  # (Ib, Nb, 2)
+        full = xp.zeros((n_ind, b.n, 2))
         if xp is np:
             full = _np_set(full, with_blood, vals)
         else:
             full = xp.set_subtensor(full[with_blood], vals)
-        blood_vals = full
+        blood_diet = full
     else:
-        blood_vals = xp.zeros((n_ind, b.n, 3))
+        blood_diet = xp.zeros((n_ind, b.n, 2))
+    ref = grid.onset_ref[:, None, None]
+    blood_e = eq.enrichment_incorporated(
+        b.t[..., None], on, duration, kappa, tau, p.rate[b.tissue][..., None], ref=ref, xp=xp
+    )
 
     # keratin: average of the pool over each growth window
     k = tb.keratin
     r = p.growth[np.arange(n_ind)[:, None], k.slot]
-    tq = eq.window_points(k.t - k.h_hi / r, k.t - k.h_lo / r, grid.keratin_points)
+    t_lo, t_hi = k.t - k.h_hi / r, k.t - k.h_lo / r
+    tq = eq.window_points(t_lo, t_hi, grid.keratin_points)
     diet_k = eq.interpolate_knots(tq, grid.spacing, knot_values, len(grid.knots), xp=xp).mean(
         axis=2
     )
-    enrich_k = eq.enrichment(
-        tq, onset[..., None], duration[..., None], kappa[..., None], tau[..., None], xp=xp
-    ).mean(axis=2)
+    keratin_e = eq.enrichment_window_mean(
+        t_lo[..., None], t_hi[..., None], on, duration, kappa, tau, ref=ref, xp=xp
+    )
+    if single:
+        enrich, blood_e, keratin_e = enrich[..., 0], blood_e[..., 0], keratin_e[..., 0]
     return Prediction(
         diet=diet,
         enrich=enrich,
-        blood0=p.disc[b.tissue] + blood_vals[..., :2],
-        blood_e=blood_vals[..., 2],
+        blood0=p.disc[b.tissue] + blood_diet,
+        blood_e=blood_e,
         keratin0=p.disc[k.tissue] + diet_k,
-        keratin_e=enrich_k,
+        keratin_e=keratin_e,
     )
 
 
@@ -285,14 +368,18 @@ def episode_logliks(tb: TimeBase, pred: Prediction, gamma, extra_sd, xp: ModuleT
     """Per-individual log-likelihoods without and with the episode.
 
     y ~ Normal(Y, sqrt(sd_row² + σ_k²)) over every observed (sample, isotope)
-    entry; the mixture over the episode indicator is built from these two.
+    entry; the mixture over the episode indicator is built from these. With
+    residuals r = y − Y0 and the episode's contribution e·(1, γ), the
+    log-likelihood with the episode is ll0 + Σ (e·a − e²·b/2) with
+    a = Σ_c g_c r_c / s²_c and b = Σ_c g_c² / s²_c (g = (1, γ)), so that
+    many candidate onsets cost one product each.
 
     Parameters
     ----------
     tb
         Time base (observations, masks, analytical SDs).
     pred
-        Output of :func:`predict`.
+        Output of :func:`predict` (one onset, or M candidate onsets).
     gamma
         ``(I,)`` δ13C response per ‰ catabolic δ15N.
     extra_sd
@@ -303,10 +390,11 @@ def episode_logliks(tb: TimeBase, pred: Prediction, gamma, extra_sd, xp: ModuleT
     Returns
     -------
     tuple
-        ``ll0``, ``ll1``: ``(I,)`` each.
+        ``ll0`` ``(I,)`` and ``ll1`` (``(I,)``, or ``(I, M)`` with candidate onsets).
     """
     ll0 = 0.0
-    ll1 = 0.0
+    gain = 0.0
+    g = xp.stack([xp.ones_like(gamma * 1.0), gamma * 1.0], axis=-1)[:, None, :]  # (I, 1, 2)
     for o, y0, ye in (
         (tb.blood, pred.blood0, pred.blood_e),
         (tb.keratin, pred.keratin0, pred.keratin_e),
@@ -316,7 +404,14 @@ def episode_logliks(tb: TimeBase, pred: Prediction, gamma, extra_sd, xp: ModuleT
         mask = o.y_mask & o.mask[..., None]
         s2 = o.sd**2 + extra_sd[o.tissue] ** 2
         norm = -0.5 * xp.log(2 * np.pi * s2)
-        y1 = with_episode(y0, ye, gamma, xp=xp)
-        ll0 = ll0 + xp.sum(xp.where(mask, norm - 0.5 * (o.y - y0) ** 2 / s2, 0.0), axis=(1, 2))
-        ll1 = ll1 + xp.sum(xp.where(mask, norm - 0.5 * (o.y - y1) ** 2 / s2, 0.0), axis=(1, 2))
-    return ll0, ll1
+        resid = xp.where(mask, o.y - y0, 0.0)
+        inv = xp.where(mask, 1.0 / s2, 0.0)
+        ll0 = ll0 + xp.sum(xp.where(mask, norm, 0.0) - 0.5 * resid**2 * inv, axis=(1, 2))
+        a = xp.sum(g * resid * inv, axis=2)  # (I, N)
+        bq = xp.sum(g**2 * inv, axis=2)
+        if ye.ndim == 3:
+            a, bq = a[..., None], bq[..., None]
+        gain = gain + xp.sum(ye * a - 0.5 * ye**2 * bq, axis=1)
+    if getattr(gain, "ndim", 0) == 2:
+        return ll0, ll0[:, None] + gain
+    return ll0, ll0 + gain
