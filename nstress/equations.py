@@ -407,6 +407,49 @@ def enrichment_incorporated(
     return _where(xp, v <= 0.0, 0.0, out)
 
 
+def ramp(t: Array, start: Array, width: float, xp: ModuleType = np) -> Array:
+    """Return a diet shift's shape: 0 before ``start``, rising to 1 over ``width`` days."""
+    return xp.clip((t - start) / width, 0.0, 1.0)
+
+
+def _ramp_integral(v: Array, width: float, xp: ModuleType = np) -> Array:
+    """∫_0^v ramp: 0 (v ≤ 0), v²/(2R) (0 < v ≤ R), v − R/2 (v > R)."""
+    u = xp.clip(v, 0.0, np.inf)
+    w = xp.minimum(u, width)
+    return w * w / (2.0 * width) + (u - w)
+
+
+def ramp_window_mean(
+    t_lo: Array, t_hi: Array, start: Array, width: float, xp: ModuleType = np
+) -> Array:
+    """Mean of :func:`ramp` over the window ``[t_lo, t_hi]`` (a keratin segment), exact."""
+    span = xp.maximum(t_hi - t_lo, 1e-9)
+    return (
+        _ramp_integral(t_hi - start, width, xp=xp) - _ramp_integral(t_lo - start, width, xp=xp)
+    ) / span
+
+
+def ramp_incorporated(
+    t: Array, start: Array, width: float, rate: Array, ref: Array = 0.0, xp: ModuleType = np
+) -> Array:
+    """Return a one-compartment tissue's response to :func:`ramp`, ∫ λe^(−λ(t − s)) ramp(s) ds.
+
+    With v = t − start and R the ramp's width (Tieszen et al. 1983 kernel)::
+
+        0 < v ≤ R:  Y = (v − (1 − e^(−λv))/λ) / R
+        v > R:      Y = 1 − e^(−λv)(e^(λR) − 1)/(λR)
+
+    and 0 before the start; e^(−λv) separates as in :func:`_decay`.
+    """
+    v = t - start
+    e_lv = _decay(rate, t, start, ref, xp=xp)
+    rising = (v - (1.0 - e_lv) / rate) / width
+    lr = xp.clip(rate * width, 0.0, EXP_CLIP)
+    done = 1.0 - e_lv * xp.expm1(lr) / (rate * width)
+    out = _where(xp, v <= width, rising, done)
+    return _where(xp, v <= 0.0, 0.0, out)
+
+
 def episode_overlap(bin_lo: Array, bin_width: float, onset: Array, duration: Array, xp=np) -> Array:
     """Fraction of each bin that lies inside the episode ``[onset, onset+duration]``.
 

@@ -177,7 +177,13 @@ def test_blood_prediction_equals_reference_weights(sim):
         ],
         axis=-1,
     )
-    np.testing.assert_allclose(pred.diet, diet, atol=1e-12)
+    # the diet path adds the explicit shift, a ramp over one knot interval that is 0 at the
+    # walk's anchor knot
+    ramp = np.clip((tb.bin_mid[None, :] - p.shift_start[:, None]) / grid.spacing, 0, 1)
+    ramp_a = np.clip((grid.knots[grid.anchor] - p.shift_start) / grid.spacing, 0, 1)
+    shift = (ramp - ramp_a[:, None])[..., None] * p.shift_size[:, None, :]
+    assert np.abs(shift).max() > 0.5  # the colony has shifters
+    np.testing.assert_allclose(pred.diet, diet + shift, atol=1e-12)
     enrich = eq.enrichment(
         tb.bin_mid[None, :],
         p.onset[:, None],
@@ -251,7 +257,16 @@ def test_blood_enrichment_is_stable_when_rates_coincide():
 # --------------------------------------------------------------------------
 # the same graph in PyTensor
 # --------------------------------------------------------------------------
-_OUTPUTS = ("diet", "enrich", "blood0", "blood_e", "keratin0", "keratin_e")
+_OUTPUTS = (
+    "diet",
+    "enrich",
+    "blood0",
+    "blood_e",
+    "keratin0",
+    "keratin_e",
+    "blood_s",
+    "keratin_s",
+)
 
 
 def _symbolic(p: Params):

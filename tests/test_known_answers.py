@@ -104,7 +104,9 @@ def test_diet_path_matches_kalman_smoother():
     )
     tissues = {"quickblood": quick}
     tb = build_timebase(table_to_samples(_blood_table(days, y15, y13, "quickblood")), tissues)
-    spec = ModelSpec(knot_days=tb.bin_width, walk_increments="normal", episodes=False)
+    spec = ModelSpec(
+        knot_days=tb.bin_width, walk_increments="normal", episodes=False, diet_shift=False
+    )
     built = build_model(tb, spec)
     model = _fixed(built.model, 1, np.array([12.0, -18.0]))
     with model:
@@ -159,7 +161,9 @@ def test_single_blood_tissue_follows_incorporation_curve():
     table = _blood_table(days, noisy[:, 0], noisy[:, 1], "plasma")
     table["sd_d15N"] = table["sd_d13C"] = 0.05
     tb = build_timebase(table_to_samples(table), {"plasma": tissue})
-    spec = ModelSpec(knot_days=tb.bin_width, walk_increments="normal", episodes=False)
+    spec = ModelSpec(
+        knot_days=tb.bin_width, walk_increments="normal", episodes=False, diet_shift=False
+    )
     built = build_model(tb, spec)
     model = _fixed(built.model, 1, d0, walk_sd=np.array([0.5, 0.5]))
     with model:

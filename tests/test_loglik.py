@@ -5,7 +5,7 @@ import pytensor
 import pytensor.tensor as pt
 from scipy.stats import norm
 
-from nstress.model.forward import episode_logliks, make_grid, predict
+from nstress.model.forward import candidate_logliks, episode_logliks, expected, make_grid, predict
 from nstress.model.simulate import ColonySpec, simulate_colony, table_to_samples
 from nstress.prep.timebase import build_timebase
 
@@ -107,3 +107,94 @@ def test_onset_weights_are_a_normalised_discretised_normal():
     # the same function with draws (S, I) and (S,)
     lw_s = onset_log_weights(grid, tb, np.stack([mu, mu]), np.array([sd, sd]))
     np.testing.assert_allclose(lw_s[1], lw, rtol=1e-12)
+
+
+def test_shift_and_episode_tables_are_the_gaussian_density_of_each_pair():
+    # Every entry (shift start j, onset m) of the likelihood tables must equal the plain
+    # Gaussian density of the data around the expected values with that start and onset
+    # (scipy.stats.norm), and the PyTensor graph must give the same numbers.
+    import dataclasses
+
+    sim, tb, grid = _setup()
+    p = sim.params
+    extra = np.full((len(tb.tissues), 2), 0.07)
+    cand = dataclasses.replace(p, onset=grid.onset_days, shift_start=grid.shift_days)
+    ll_none, ll_ep = candidate_logliks(tb, predict(tb, grid, cand), p.gamma, p.shift_size, extra)
+    J, M = grid.shift_days.shape[1], grid.onset_days.shape[1]
+    assert ll_none.shape == (tb.n_individuals, J) and ll_ep.shape == (tb.n_individuals, J, M)
+
+    def direct(j, m, episode):
+        one = dataclasses.replace(p, onset=grid.onset_days[:, m], shift_start=grid.shift_days[:, j])
+        yb, yk = expected(predict(tb, grid, one), p.gamma, p.shift_size)
+        if not episode:
+            zero = dataclasses.replace(one, kappa=np.zeros_like(p.kappa))
+            yb, yk = expected(predict(tb, grid, zero), p.gamma, p.shift_size)
+        out = np.zeros(tb.n_individuals)
+        for o, mu in ((tb.blood, yb), (tb.keratin, yk)):
+            m_ = o.y_mask & o.mask[..., None]
+            sd = np.sqrt(o.sd**2 + extra[o.tissue] ** 2)
+            out += np.where(m_, norm.logpdf(o.y, mu, sd), 0.0).sum(axis=(1, 2))
+        return out
+
+    for j, m in ((0, 0), (J // 2, M // 3), (J - 1, M - 1)):
+        np.testing.assert_allclose(ll_ep[:, j, m], direct(j, m, True), rtol=1e-10)
+        np.testing.assert_allclose(ll_none[:, j], direct(j, m, False), rtol=1e-10)
+
+    gamma = pt.vector("gamma")
+    tn, te = candidate_logliks(
+        tb, predict(tb, grid, cand), gamma, pt.as_tensor(p.shift_size), pt.as_tensor(extra), xp=pt
+    )
+    f = pytensor.function([gamma], [tn, te], mode="FAST_COMPILE")
+    a_none, a_ep = f(np.asarray(p.gamma, dtype=float))
+    np.testing.assert_allclose(a_none, ll_none, rtol=1e-12)
+    np.testing.assert_allclose(a_ep, ll_ep, rtol=1e-12)
+
+
+def test_mixture_over_group_onsets_matches_explicit_enumeration():
+    # episode_mixture sums shift starts, onsets and (per group mean onset) the episode
+    # indicator; check it against a plain loop over every combination
+    import dataclasses
+
+    from nstress.model.build import (
+        episode_mixture,
+        group_onset_grid,
+        onset_log_weights,
+        onset_log_weights_grid,
+    )
+
+    sim, tb, grid = _setup()
+    p = sim.params
+    extra = np.full((len(tb.tissues), 2), 0.07)
+    cand = dataclasses.replace(p, onset=grid.onset_days, shift_start=grid.shift_days)
+    ll_none, ll_ep = candidate_logliks(tb, predict(tb, grid, cand), p.gamma, p.shift_size, extra)
+    n_sh = grid.shift_mask.sum(axis=1, keepdims=True)
+    log_u = np.where(grid.shift_mask, -np.log(n_sh), -np.inf)
+    G = len(tb.groups)
+    mu_grid, log_prior = group_onset_grid(grid, tb, np.full(G, 300.0), np.full(G, 80.0))
+    np.testing.assert_allclose(np.exp(log_prior).sum(axis=1), 1.0)
+    sd = 9.0
+    logw = onset_log_weights_grid(grid, tb, mu_grid, sd)
+    k = len(mu_grid) // 2
+    np.testing.assert_allclose(
+        logw[:, k][grid.onset_mask],
+        onset_log_weights(grid, tb, np.full(tb.n_individuals, mu_grid[k]), sd)[grid.onset_mask],
+    )
+    pi = 0.3
+    lp0, lp1 = episode_mixture(
+        ll_none,
+        ll_ep,
+        log_u,
+        logw,
+        np.full(tb.n_individuals, np.log(pi)),
+        np.full(tb.n_individuals, np.log1p(-pi)),
+    )
+    for i in range(tb.n_individuals):
+        ref0 = np.log1p(-pi) + np.log(
+            sum(np.exp(log_u[i, j] + ll_none[i, j]) for j in range(ll_none.shape[1]))
+        )
+        np.testing.assert_allclose(lp0[i], ref0, rtol=1e-9)
+        tot = 0.0
+        for j in np.flatnonzero(grid.shift_mask[i]):
+            for m in np.flatnonzero(grid.onset_mask[i]):
+                tot += np.exp(log_u[i, j] + logw[i, k, m] + ll_ep[i, j, m] - ll_none[i, 0])
+        np.testing.assert_allclose(lp1[i, k], np.log(pi) + np.log(tot) + ll_none[i, 0], rtol=1e-9)

@@ -213,11 +213,11 @@ def test_noise_free_table_equals_forward_model_on_reread_grid(tmp_path):
     s = simulate_colony(spec)
     tb = build_timebase(table_to_samples(s.table))
     pred = predict(tb, s.grid, s.params)
-    for obs, y0, ye in (
-        (tb.blood, pred.blood0, pred.blood_e),
-        (tb.keratin, pred.keratin0, pred.keratin_e),
+    for obs, y0, ye, ys in (
+        (tb.blood, pred.blood0, pred.blood_e, pred.blood_s),
+        (tb.keratin, pred.keratin0, pred.keratin_e, pred.keratin_s),
     ):
-        y = with_episode(y0, ye, s.params.gamma)
+        y = with_episode(y0, ye, s.params.gamma) + ys[..., None] * s.params.shift_size[:, None]
         rows = obs.sample[obs.mask]
         np.testing.assert_allclose(
             s.table.loc[rows, ["d15N", "d13C"]].to_numpy(), y[obs.mask], atol=1e-12

@@ -59,12 +59,18 @@ class ModelSpec:
     walk
         ``"noncentred"`` or ``"centred"`` parameterisation of the diet walk.
     walk_increments
-        ``"student_t"`` (heavy-tailed: a diet shift is one large step) or
-        ``"normal"`` (Gaussian; the known-answer case of a local-level model).
+        ``"normal"`` (Gaussian; with ``diet_shift`` the default, and the
+        known-answer case of a local-level model) or ``"student_t"``
+        (heavy-tailed: a diet shift is one large step; its location then had
+        one mode per knot, traded against growth, and chains disagreed).
         Applies to the non-centred walk; the centred walk is always Gaussian.
     walk_scale_per_animal
         Whether each animal's walk has its own scale (another way to let
         diet shifters move; it makes a funnel with the increments).
+    diet_shift
+        One explicit diet shift per animal (a ramp over one knot interval,
+        size (Δδ15N, Δδ13C), start summed exactly over the knots). ``False``
+        leaves the walk alone to carry diet changes.
     episodes
         ``False`` switches catabolism off (diet-only model: the likelihood is
         the no-episode component alone); a known-answer and diagnostic case.
@@ -79,9 +85,10 @@ class ModelSpec:
     priors: dict[str, dict[str, Any]] = field(default_factory=dict)
     reference_tissue: str | None = None
     walk: str = "noncentred"
-    walk_increments: str = "student_t"
+    walk_increments: str = "normal"
     walk_scale_per_animal: bool = False
     episodes: bool = True
+    diet_shift: bool = True
 
 
 @dataclass
@@ -94,6 +101,8 @@ class BuiltModel:
     spec: ModelSpec
     priors: dict[str, dict[str, Any]]
     reference_tissue: str
+    mu_grid: np.ndarray | None = None
+    mu_log_prior: np.ndarray | None = None
 
 
 def _coords(tb: TimeBase, grid: forward.Grid) -> dict[str, Any]:
@@ -160,6 +169,85 @@ def onset_log_weights(grid: forward.Grid, tb: TimeBase, mu: Any, sd: Any, xp: An
     else:
         lse = pt.logsumexp(logw, axis=-1, keepdims=True)
     return logw - lse
+
+
+def onset_log_weights_grid(
+    grid: forward.Grid, tb: TimeBase, mu_grid: np.ndarray, sd: Any, xp: Any = np
+) -> Any:
+    """Log onset weights ``(I, K, M)`` for every candidate group mean onset μ_k.
+
+    As :func:`onset_log_weights`, for each of the K values of ``mu_grid``
+    (days since the earliest origin, shared by all groups).
+    """
+    c_abs = (grid.onset_days + tb.origin_offset[:, None])[:, None, :]  # (I, 1, M)
+    sd_eff = xp.sqrt(sd**2 + grid.onset_step**2 / 12.0)
+    z = (c_abs - np.asarray(mu_grid, float)[None, :, None]) / sd_eff
+    logw = xp.where(grid.onset_mask[:, None, :], -0.5 * z**2, -1e10)
+    if xp is np:
+        top = logw.max(axis=-1, keepdims=True)
+        return logw - (top + np.log(np.exp(logw - top).sum(axis=-1, keepdims=True)))
+    return logw - pt.logsumexp(logw, axis=-1, keepdims=True)
+
+
+def group_onset_grid(
+    grid: forward.Grid, tb: TimeBase, mid: np.ndarray, half: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Candidate group mean onsets μ_k and their log prior per group.
+
+    The group mean onset is summed out exactly over a grid (every onset step
+    across all candidate onsets): as a continuous parameter, a chain whose μ
+    wandered away from the fasts during warm-up stayed there (its weights put
+    every animal's episode at the window's edge, so the diet absorbed them).
+    The prior is Normal(``mid``, ``half``) per group, normalised on the grid.
+
+    Returns
+    -------
+    tuple
+        ``mu_grid`` ``(K,)`` (days since the earliest origin) and
+        ``log_prior`` ``(G, K)``.
+    """
+    c_abs = np.where(grid.onset_mask, grid.onset_days + tb.origin_offset[:, None], np.nan)
+    lo, hi = np.nanmin(c_abs), np.nanmax(c_abs)
+    mu_grid = lo + grid.onset_step * np.arange(int(np.floor((hi - lo) / grid.onset_step)) + 1)
+    lp = -0.5 * ((mu_grid[None, :] - mid[:, None]) / half[:, None]) ** 2
+    lp -= lp.max(axis=1, keepdims=True)
+    return mu_grid, lp - np.log(np.exp(lp).sum(axis=1, keepdims=True))
+
+
+def episode_mixture(ll_none, ll_ep, log_u, onset_logw, log_pi, log_1m_pi, xp: Any = np):
+    """Per-animal log-likelihoods without an episode and with one, per group mean onset.
+
+    Parameters
+    ----------
+    ll_none, ll_ep
+        Tables of :func:`nstress.model.forward.candidate_logliks`,
+        ``(I, J)`` and ``(I, J, M)``.
+    log_u
+        ``(I, J)`` log prior of the shift starts.
+    onset_logw
+        ``(I, K, M)`` log onset weights per group mean onset
+        (:func:`onset_log_weights_grid`).
+    log_pi, log_1m_pi
+        ``(I,)`` log π and log(1 − π) of each animal's group.
+    xp
+        Array namespace.
+
+    Returns
+    -------
+    tuple
+        ``lp0`` ``(I,)`` and ``lp1`` ``(I, K)``, each including its log prior.
+    """
+    lse = pt.logsumexp if xp is not np else _np_logsumexp
+    lp0 = log_1m_pi + lse(log_u + ll_none, axis=1)
+    per_onset = lse(log_u[:, :, None] + ll_ep, axis=1)  # (I, M)
+    lp1 = log_pi[:, None] + lse(onset_logw + per_onset[:, None, :], axis=2)
+    return lp0, lp1
+
+
+def _np_logsumexp(a: np.ndarray, axis: int) -> np.ndarray:
+    top = np.max(a, axis=axis, keepdims=True)
+    top = np.where(np.isfinite(top), top, 0.0)
+    return np.squeeze(top, axis) + np.log(np.sum(np.exp(a - top), axis=axis))
 
 
 def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
@@ -274,9 +362,10 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         # A continuous onset per animal made NUTS chains settle in different
         # modes (an episode parked where no sample sees it, or a colony-wide
         # timing shift traded against growth); summing over the grid removes them.
-        mu_on = pm.Normal("onset_group", mu=g_mid, sigma=g_half, dims=dims.GROUP)
+        # the group mean onset μ is summed out too, over mu_grid (group_onset_grid)
         sd_on = pm.HalfNormal("onset_sd", sigma=pr["onset_sd"]["sigma"])
-        onset_log_w = onset_log_weights(grid, tb, mu_on[gi], sd_on, xp=pt)
+        mu_grid, mu_log_prior = group_onset_grid(grid, tb, g_mid, g_half)
+        onset_log_w = onset_log_weights_grid(grid, tb, mu_grid, sd_on, xp=pt)  # (I, K, M)
 
         def _lognormal_group(name: str, key: str) -> Any:
             m = pm.Normal(
@@ -343,6 +432,28 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             "extra_sd", sigma=pr["extra_sd"]["sigma"], dims=(dims.TISSUE, dims.ISOTOPE)
         )
 
+        # ---- one explicit diet shift (start summed out over the knots) ---------
+        shift = None
+        if spec.diet_shift:
+            sh_sd = pm.HalfNormal("shift_sd", sigma=pr["shift_sd"]["sigma"], dims=dims.ISOTOPE)
+            sh_rho = pt.tanh(
+                pm.Normal("shift_corr_z", pr["shift_corr"]["mu"], pr["shift_corr"]["sigma"])
+            )
+            z_sh = pm.Normal("z_shift", 0.0, 1.0, dims=(dims.INDIVIDUAL, dims.ISOTOPE))
+            shift = pm.Deterministic(
+                "shift",
+                pt.stack(
+                    [
+                        sh_sd[0] * z_sh[:, 0],
+                        sh_sd[1] * (sh_rho * z_sh[:, 0] + pt.sqrt(1.0 - sh_rho**2) * z_sh[:, 1]),
+                    ],
+                    axis=-1,
+                ),
+                dims=(dims.INDIVIDUAL, dims.ISOTOPE),
+            )
+        n_shift = grid.shift_mask.sum(axis=1, keepdims=True)
+        shift_log_u = np.where(grid.shift_mask, -np.log(n_shift), -1e10)  # uniform start
+
         # ---- likelihood --------------------------------------------------
         params = forward.Params(
             baseline=baseline,
@@ -355,18 +466,33 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             disc=disc,
             rate=rate,
             growth=growth,
+            shift_size=shift,
+            shift_start=grid.shift_days if spec.diet_shift else None,
         )
         pred = forward.predict(tb, grid, params, xp=pt)
-        ll0, ll1 = forward.episode_logliks(tb, pred, gamma, extra_sd, xp=pt)
+        ll_none, ll_ep = forward.candidate_logliks(tb, pred, gamma, shift, extra_sd, xp=pt)
+        log_u = shift_log_u if spec.diet_shift else np.zeros((I, 1))
+        lp_none = pt.logsumexp(log_u + ll_none, axis=1)
         if spec.episodes:
-            lp0 = pt.log1p(-pi[gi]) + ll0
-            lp1 = pt.log(pi[gi]) + pt.logsumexp(onset_log_w + ll1, axis=1)
-            pm.Potential("mixture", pt.sum(pt.logaddexp(lp0, lp1)))
+            lp0, lp1 = episode_mixture(
+                ll_none, ll_ep, log_u, onset_log_w, pt.log(pi[gi]), pt.log1p(-pi[gi]), xp=pt
+            )
+            per_mu = pt.logaddexp(lp0[:, None], lp1)  # (I, K)
+            onehot = (gi[None, :] == np.arange(G)[:, None]).astype(float)  # (G, I)
+            by_group = mu_log_prior + pt.dot(onehot, per_mu)  # (G, K)
+            pm.Potential("mixture", pt.sum(pt.logsumexp(by_group, axis=1)))
         else:
-            pm.Potential("no_episode", pt.sum(ll0))
-        # P(episode | continuous parameters) per draw is recomputed after sampling from the
-        # stored parameters with the same equations (nstress.model.draws), which keeps the
-        # forward model out of the compiled "expand" function.
+            pm.Potential("no_episode", pt.sum(lp_none))
+        # P(episode), P(onset) and P(shift start) given the continuous parameters are
+        # recomputed per draw after sampling with the same functions (nstress.model.draws),
+        # which keeps the forward model out of the compiled "expand" function.
     return BuiltModel(
-        model=model, timebase=tb, grid=grid, spec=spec, priors=pr, reference_tissue=ref
+        model=model,
+        timebase=tb,
+        grid=grid,
+        spec=spec,
+        priors=pr,
+        reference_tissue=ref,
+        mu_grid=mu_grid,
+        mu_log_prior=mu_log_prior,
     )

@@ -15,6 +15,7 @@ from typing import Any
 
 import numpy as np
 
+from nstress.model import forward
 from nstress.model import posterior as post
 from nstress.model.build import BuiltModel
 from nstress.model.draws import Draws, latent_paths, predictions
@@ -32,6 +33,7 @@ HYPER = (
     "tau_rec_log_mean",
     "gamma",
     "growth_log_mean",
+    "shift_sd",
 )
 
 
@@ -88,6 +90,8 @@ def _identified(built: BuiltModel, d: Draws, paths: dict[str, np.ndarray], idata
             a = post.var(idata, name)
             step = max(1, a.shape[1] // per)
             arrays[name] = a[:, ::step][:, :per]
+        elif name in d.params:  # summed out in the model, drawn per draw (draws.collect)
+            arrays[name] = d.by_chain(d.params[name])
     return arrays
 
 
@@ -99,15 +103,10 @@ def _ppc(built: BuiltModel, d: Draws, seed: int, n_rep: int = 200) -> dict[str, 
     reps = {"blood": [], "keratin": []}
     for s in idx:
         pr = predictions(built, d, s)
-        g = d.gamma_ind[s]
-        z = d.episode[s]
+        shift = d.params["shift"][s] if "shift" in d.params else None
+        means = forward.expected(pr, d.gamma_ind[s], shift, episode=d.episode[s])
         esd = d.params["extra_sd"][s]
-        for name, o, y0, ye in (
-            ("blood", tb.blood, pr.blood0, pr.blood_e),
-            ("keratin", tb.keratin, pr.keratin0, pr.keratin_e),
-        ):
-            e = (z[:, None] * ye)[..., None] * np.stack([np.ones_like(g), g], -1)[:, None, :]
-            mu = y0 + e
+        for name, o, mu in (("blood", tb.blood, means[0]), ("keratin", tb.keratin, means[1])):
             sd = np.sqrt(o.sd**2 + esd[o.tissue] ** 2)
             reps[name].append(mu + sd * rng.standard_normal(mu.shape))
     out: dict[str, dict[str, float]] = {}

@@ -16,12 +16,11 @@ import numpy as np
 from nstress import equations as eq
 from nstress.model import forward
 from nstress.model import posterior as post
-from nstress.model.build import BuiltModel, onset_log_weights
+from nstress.model.build import BuiltModel, episode_mixture, onset_log_weights_grid
 
 PARAM_NAMES = (
     "diet_level",
     "diet_steps",
-    "onset_group",
     "onset_sd",
     "duration",
     "kappa",
@@ -32,6 +31,7 @@ PARAM_NAMES = (
     "growth",
     "extra_sd",
     "p_episode_group",
+    "shift",
 )
 
 
@@ -95,31 +95,74 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
         episode=np.zeros((n_s, n_i), bool),
         gamma_ind=flat["gamma"][:, gi],
     )
-    # P(episode | parameters) and P(onset | parameters, episode) per draw, with the
-    # model's own likelihood (forward.py) and onset weights (build.py)
+    # Per draw, with the model's own likelihood tables (forward.py) and prior weights
+    # (build.py): P(episode | parameters), then the episode indicator, the onset (given an
+    # episode) and the shift start (given the indicator), all drawn with one seeded stream.
     pi = flat["p_episode_group"][:, gi]
-    logw = onset_log_weights(grid, tb, flat["onset_group"][:, gi], flat["onset_sd"])
+    has_shift = "shift" in flat
+    if has_shift:
+        n_sh = grid.shift_mask.sum(axis=1, keepdims=True)
+        log_u = np.where(grid.shift_mask, -np.log(n_sh), -np.inf)
+    else:
+        log_u = np.zeros((n_i, 1))
     rng = np.random.default_rng(seed)
     onset = np.zeros((n_s, n_i))
+    start = np.zeros((n_s, n_i))
+    mu = np.zeros((n_s, len(tb.groups)))
     prob = np.zeros(grid.onset_days.shape)
+    rows = np.arange(n_i)
+    M = grid.onset_days.shape[1]
+    onehot = (gi[None, :] == np.arange(len(tb.groups))[:, None]).astype(float)
     for s in range(n_s):
-        pred = predictions(built, d, s, onset=grid.onset_days)
-        ll0, ll1 = forward.episode_logliks(tb, pred, d.gamma_ind[s], flat["extra_sd"][s])
-        lm = logw[s] + ll1 - ll0[:, None]  # (I, M)
-        top = lm.max(axis=1, keepdims=True)
-        q = np.exp(lm - top)
-        tot = q.sum(axis=1, keepdims=True)
-        q /= tot
-        logit = np.log(pi[s]) - np.log1p(-pi[s]) + top[:, 0] + np.log(tot[:, 0])
-        d.p_cond[s] = 0.5 * (1.0 + np.tanh(0.5 * logit))
-        m = (rng.random((n_i, 1)) > np.cumsum(q, axis=1)).sum(axis=1)
-        m = np.minimum(m, q.shape[1] - 1)
-        onset[s] = grid.onset_days[np.arange(n_i), m]
-        prob += q
+        pred = predictions(
+            built, d, s, onset=grid.onset_days, shift_start=grid.shift_days if has_shift else None
+        )
+        shift = flat["shift"][s] if has_shift else None
+        ll_none, ll_ep = forward.candidate_logliks(
+            tb, pred, d.gamma_ind[s], shift, flat["extra_sd"][s]
+        )
+        logw_k = onset_log_weights_grid(grid, tb, built.mu_grid, flat["onset_sd"][s])
+        lp0, lp1 = episode_mixture(ll_none, ll_ep, log_u, logw_k, np.log(pi[s]), np.log1p(-pi[s]))
+        per_mu = np.logaddexp(lp0[:, None], lp1)  # (I, K)
+        _, post_mu = _normalise(built.mu_log_prior + onehot @ per_mu)  # (G, K)
+        p_ep_k = np.exp(lp1 - per_mu)  # P(episode | μ_k, parameters)
+        d.p_cond[s] = (post_mu[gi] * p_ep_k).sum(axis=1)  # Rao-Blackwellised over μ
+        kg = _draw_index(rng, post_mu)  # one group mean onset per group
+        k = kg[gi]
+        mu[s] = built.mu_grid[kg]
+        z = rng.random(n_i) < p_ep_k[rows, k]
+        d.episode[s] = z
+        logw = logw_k[rows, k]  # (I, M)
+        l0 = log_u + ll_none  # (I, J)
+        l1 = (log_u[:, :, None] + logw[:, None, :] + ll_ep).reshape(n_i, -1)  # (I, J·M)
+        _, q0 = _normalise(l0)
+        _, q1 = _normalise(l1)
+        k1 = _draw_index(rng, q1)
+        k0 = _draw_index(rng, q0)
+        onset[s] = grid.onset_days[rows, k1 % M]
+        j = np.where(z, k1 // M, k0)
+        start[s] = grid.shift_days[rows, j]
+        prob += q1.reshape(n_i, -1, M).sum(axis=1)
+    flat["onset_group"] = mu
     flat["onset"] = onset
+    if has_shift:
+        flat["shift_start"] = start
     d.onset_prob = prob / max(n_s, 1)
-    d.episode[:] = rng.random(d.p_cond.shape) < d.p_cond
     return d
+
+
+def _normalise(logp: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Row-wise log-sum-exp and normalised probabilities of a log table."""
+    top = logp.max(axis=1, keepdims=True)
+    q = np.exp(logp - top)
+    tot = q.sum(axis=1, keepdims=True)
+    return top[:, 0] + np.log(tot[:, 0]), q / tot
+
+
+def _draw_index(rng: np.random.Generator, q: np.ndarray) -> np.ndarray:
+    """One index per row from row-normalised probabilities."""
+    k = (rng.random((q.shape[0], 1)) > np.cumsum(q, axis=1)).sum(axis=1)
+    return np.minimum(k, q.shape[1] - 1)
 
 
 def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:
@@ -138,6 +181,11 @@ def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:
         "ikj,sijc->sikc", grid.walk, p["diet_steps"]
     )
     diet = np.einsum("tk,sikc->sitc", grid.basis, values)
+    if "shift" in p:  # the same anchored ramp as forward.predict
+        st = p["shift_start"][..., None]
+        at_anchor = eq.ramp(grid.knots[grid.anchor][None, :, None], st, grid.spacing)
+        ramp = eq.ramp(tb.bin_mid[None, None, :], st, grid.spacing) - at_anchor
+        diet = diet + ramp[..., None] * p["shift"][:, :, None, :]
     t = tb.bin_mid[None, None, :]
     on, du = p["onset"][..., None], p["duration"][..., None]
     enrich = eq.enrichment(t, on, du, p["kappa"][..., None], p["tau_rec"][..., None])
@@ -146,14 +194,20 @@ def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:
 
 
 def predictions(
-    built: BuiltModel, d: Draws, idx: int, onset: np.ndarray | None = None
+    built: BuiltModel,
+    d: Draws,
+    idx: int,
+    onset: np.ndarray | None = None,
+    shift_start: np.ndarray | None = None,
 ) -> forward.Prediction:
     """Return the expected tissue values of one draw, via :func:`forward.predict`.
 
-    ``onset`` overrides the draw's onset, e.g. with the candidate onsets
-    ``(I, M)`` of the grid.
+    ``onset`` and ``shift_start`` override the draw's, e.g. with the
+    candidate onsets ``(I, M)`` and shift starts ``(I, J)`` of the grid.
     """
     p = d.params
+    if shift_start is None and "shift_start" in p:
+        shift_start = p["shift_start"][idx]
     params = forward.Params(
         baseline=p["diet_level"][idx],
         steps=p["diet_steps"][idx],
@@ -165,5 +219,7 @@ def predictions(
         disc=p["discrimination"][idx],
         rate=np.log(2.0) / p["half_life"][idx],
         growth=p["growth"][idx],
+        shift_size=p["shift"][idx] if "shift" in p else None,
+        shift_start=shift_start,
     )
     return forward.predict(built.timebase, built.grid, params, xp=np)

@@ -142,6 +142,8 @@ JITTERED = (
     "z_disc",
     "z_half_life",
     "extra_sd",
+    "shift_sd",
+    "shift_corr_z",
 )
 """Variables whose start is jittered per chain (the colony-level ones).
 

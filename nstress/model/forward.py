@@ -60,6 +60,11 @@ class Grid:
     onset_ref
         ``(I,)`` middle of each individual's sampled span (days), the
         reference time of the separated exponentials of the episode response.
+    shift_days
+        ``(I, J)`` candidate starts of a diet shift: the knots whose ramp
+        (to the next knot) overlaps what the individual's samples see.
+    shift_mask
+        ``(I, J)`` which candidates are real (rows are padded to J).
     keratin_points
         Quadrature points per keratin growth window (diet path).
     """
@@ -77,6 +82,8 @@ class Grid:
     onset_mask: np.ndarray
     onset_step: float
     onset_ref: np.ndarray
+    shift_days: np.ndarray
+    shift_mask: np.ndarray
     keratin_points: int = DEFAULT_KERATIN_POINTS
 
     @property
@@ -118,6 +125,7 @@ def make_grid(
     slot = np.zeros(tb.tissue_class.__len__(), dtype=np.int64)
     slot[blood_tissues] = np.arange(len(blood_tissues))
     onsets, onset_mask = onset_grid(tb, onset_step)
+    shifts, shift_mask = shift_grid(tb, knots)
     return Grid(
         knots=knots,
         walk=eq.anchored_walk_matrix(n_knots, anchor),
@@ -132,6 +140,8 @@ def make_grid(
         onset_mask=onset_mask,
         onset_step=float(onset_step),
         onset_ref=0.5 * np.add(*sampled_span(tb)),
+        shift_days=shifts,
+        shift_mask=shift_mask,
         keratin_points=int(keratin_points),
     )
 
@@ -179,6 +189,33 @@ def onset_grid(tb: TimeBase, step: float) -> tuple[np.ndarray, np.ndarray]:
     return np.where(mask, onsets, lo[:, None]), mask
 
 
+def shift_grid(tb: TimeBase, knots: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Candidate diet-shift starts per individual: knots whose ramp overlaps the sampled span.
+
+    A shift is a ramp from one knot to the next (:func:`nstress.equations.ramp`);
+    one starting after the last sample, or ending before the earliest sampled
+    time, leaves no trace. Rows are padded to a common count J.
+
+    Returns
+    -------
+    tuple
+        ``starts`` ``(I, J)`` (days since each individual's origin) and a bool mask.
+    """
+    lo, hi = sampled_span(tb)
+    spacing = float(knots[1] - knots[0])
+    starts = knots[:-1]
+    ok = (starts[None, :] + spacing > lo[:, None]) & (starts[None, :] < hi[:, None])
+    ok[~ok.any(axis=1), 0] = True
+    n = ok.sum(axis=1)
+    J = int(n.max())
+    out = np.zeros((tb.n_individuals, J))
+    mask = np.arange(J)[None, :] < n[:, None]
+    for_rows = np.argsort(~ok, axis=1, kind="stable")[:, :J]  # the candidate knots, in order
+    out[:] = starts[for_rows]
+    out = np.where(mask, out, out[:, :1])
+    return out, mask
+
+
 def _anchor_knots(tb: TimeBase, knots: np.ndarray) -> np.ndarray:
     """Knot nearest the median time of each individual's samples (keratin at nominal growth)."""
     times = []
@@ -215,6 +252,11 @@ class Params:
         ``(n_tissues,)`` incorporation rate λ (1/d; keratin entries unused).
     growth
         ``(I, K_keratin)`` growth multipliers r.
+    shift_size
+        ``(I, 2)`` size of one explicit diet shift (Δδ15N, Δδ13C, ‰), or ``None``.
+    shift_start
+        ``(I,)`` start of the shift's ramp (days since origin; it reaches its
+        full size one knot spacing later), or ``(I, J)`` candidate starts.
     """
 
     baseline: Any
@@ -227,6 +269,8 @@ class Params:
     disc: Any
     rate: Any
     growth: Any
+    shift_size: Any = None
+    shift_start: Any = None
 
 
 @dataclass
@@ -236,8 +280,12 @@ class Prediction:
     ``blood0``/``keratin0`` are ``(I, N, 2)`` without an episode;
     ``blood_e``/``keratin_e`` are the episode's δ15N contribution (the δ13C
     contribution is γ times it): ``(I, N)`` for one onset per individual, or
-    ``(I, N, M)`` for M candidate onsets. ``diet`` ``(I, T, 2)`` and
-    ``enrich`` (``(I, T)`` or ``(I, T, M)``) are the latent paths.
+    ``(I, N, M)`` for M candidate onsets. ``blood_s``/``keratin_s`` are
+    the response to a unit diet shift (anchored: 0 at the walk's anchor knot),
+    ``(I, N)`` or ``(I, N, J)`` for J candidate starts; the shift adds
+    Δ·s to each isotope. ``blood0``/``keratin0`` exclude the shift and the
+    episode (see :func:`expected`). ``diet`` ``(I, T, 2)`` includes a single
+    shift; ``enrich`` (``(I, T)`` or ``(I, T, M)``) is the enrichment.
     """
 
     diet: Any
@@ -246,6 +294,8 @@ class Prediction:
     blood_e: Any
     keratin0: Any
     keratin_e: Any
+    blood_s: Any = None
+    keratin_s: Any = None
 
 
 def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Prediction:
@@ -342,6 +392,24 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
     )
     if single:
         enrich, blood_e, keratin_e = enrich[..., 0], blood_e[..., 0], keratin_e[..., 0]
+
+    # diet shift: a ramp over one knot spacing, anchored (0 at the anchor knot)
+    blood_s = keratin_s = None
+    if p.shift_start is not None:
+        one_shift = p.shift_start.ndim == 1
+        st = (p.shift_start[:, None] if one_shift else p.shift_start)[:, None, :]  # (I, 1, J)
+        w = grid.spacing
+        at_anchor = eq.ramp(grid.knots[grid.anchor][:, None, None], st, w, xp=xp)
+        blood_s = (
+            eq.ramp_incorporated(b.t[..., None], st, w, p.rate[b.tissue][..., None], ref=ref, xp=xp)
+            - at_anchor
+        )
+        keratin_s = eq.ramp_window_mean(t_lo[..., None], t_hi[..., None], st, w, xp=xp) - at_anchor
+        if one_shift:
+            blood_s, keratin_s = blood_s[..., 0], keratin_s[..., 0]
+            if p.shift_size is not None:
+                on_bins = eq.ramp(tb.bin_mid[None, :, None], st, w, xp=xp) - at_anchor
+                diet = diet + on_bins * p.shift_size[:, None, :]
     return Prediction(
         diet=diet,
         enrich=enrich,
@@ -349,6 +417,8 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
         blood_e=blood_e,
         keratin0=p.disc[k.tissue] + diet_k,
         keratin_e=keratin_e,
+        blood_s=blood_s,
+        keratin_s=keratin_s,
     )
 
 
@@ -364,24 +434,52 @@ def with_episode(y0, ye, gamma, xp: ModuleType = np):
     return eq.body_pool(y0, ye, g, xp=xp)
 
 
-def episode_logliks(tb: TimeBase, pred: Prediction, gamma, extra_sd, xp: ModuleType = np):
-    """Per-individual log-likelihoods without and with the episode.
+def expected(pred: Prediction, gamma, shift_size=None, episode=None) -> tuple[Any, Any]:
+    """Return the expected (blood, keratin) values ``(I, N, 2)`` of one draw (NumPy).
+
+    y = y0 + Δ·s + z·e·(1, γ), with the shift Δ (``shift_size``, if any) and
+    the episode indicator z (``episode`` ``(I,)``; all ones if ``None``).
+    """
+    out = []
+    for y0, ye, ys in (
+        (pred.blood0, pred.blood_e, pred.blood_s),
+        (pred.keratin0, pred.keratin_e, pred.keratin_s),
+    ):
+        z = 1.0 if episode is None else np.asarray(episode, float)[:, None]
+        y = with_episode(y0, z * ye, gamma)
+        if shift_size is not None and ys is not None:
+            y = y + ys[..., None] * shift_size[:, None, :]
+        out.append(y)
+    return out[0], out[1]
+
+
+def candidate_logliks(
+    tb: TimeBase, pred: Prediction, gamma, shift_size, extra_sd, xp: ModuleType = np
+):
+    """Log-likelihood tables over candidate shift starts j and episode onsets m.
 
     y ~ Normal(Y, sqrt(sd_row² + σ_k²)) over every observed (sample, isotope)
-    entry; the mixture over the episode indicator is built from these. With
-    residuals r = y − Y0 and the episode's contribution e·(1, γ), the
-    log-likelihood with the episode is ll0 + Σ (e·a − e²·b/2) with
-    a = Σ_c g_c r_c / s²_c and b = Σ_c g_c² / s²_c (g = (1, γ)), so that
-    many candidate onsets cost one product each.
+    entry. With residuals r = y − Y0 (no shift, no episode), the shift's
+    unit response s_nj (times Δ per isotope) and the episode's e_nm (times
+    g = (1, γ)), the Gaussian log-likelihood expands exactly into
+
+        ll(j, m) = ll0 + Σ_n [s A − s² B/2]_nj + Σ_n [e a − e² b/2]_nm − Σ_n s_nj C_n e_nm
+
+    with A = Σ_c Δ_c r_c/s²_c, B = Σ_c Δ_c²/s²_c, a = Σ_c g_c r_c/s²_c,
+    b = Σ_c g_c²/s²_c, C = Σ_c Δ_c g_c/s²_c: every candidate pair costs a
+    few products, and the cross term is one batched matrix product.
 
     Parameters
     ----------
     tb
         Time base (observations, masks, analytical SDs).
     pred
-        Output of :func:`predict` (one onset, or M candidate onsets).
+        Output of :func:`predict`: episode terms ``(I, N)`` or ``(I, N, M)``,
+        shift terms ``(I, N)``, ``(I, N, J)`` or ``None`` (no shift).
     gamma
         ``(I,)`` δ13C response per ‰ catabolic δ15N.
+    shift_size
+        ``(I, 2)`` shift Δ (‰), or ``None``.
     extra_sd
         ``(n_tissues, 2)`` extra SD per tissue and isotope (‰).
     xp
@@ -390,14 +488,19 @@ def episode_logliks(tb: TimeBase, pred: Prediction, gamma, extra_sd, xp: ModuleT
     Returns
     -------
     tuple
-        ``ll0`` ``(I,)`` and ``ll1`` (``(I,)``, or ``(I, M)`` with candidate onsets).
+        ``ll_none`` ``(I, J)`` (no episode) and ``ll_episode`` ``(I, J, M)``;
+        J = 1 without candidate shifts and M = 1 with one onset.
     """
     ll0 = 0.0
-    gain = 0.0
+    shift_gain = 0.0
+    ep_gain = 0.0
+    cross = 0.0
     g = xp.stack([xp.ones_like(gamma * 1.0), gamma * 1.0], axis=-1)[:, None, :]  # (I, 1, 2)
-    for o, y0, ye in (
-        (tb.blood, pred.blood0, pred.blood_e),
-        (tb.keratin, pred.keratin0, pred.keratin_e),
+    has_shift = shift_size is not None
+    dv = shift_size[:, None, :] if has_shift else None
+    for o, y0, ye, ys in (
+        (tb.blood, pred.blood0, pred.blood_e, pred.blood_s),
+        (tb.keratin, pred.keratin0, pred.keratin_e, pred.keratin_s),
     ):
         if not o.mask.any():
             continue
@@ -407,11 +510,40 @@ def episode_logliks(tb: TimeBase, pred: Prediction, gamma, extra_sd, xp: ModuleT
         resid = xp.where(mask, o.y - y0, 0.0)
         inv = xp.where(mask, 1.0 / s2, 0.0)
         ll0 = ll0 + xp.sum(xp.where(mask, norm, 0.0) - 0.5 * resid**2 * inv, axis=(1, 2))
-        a = xp.sum(g * resid * inv, axis=2)  # (I, N)
-        bq = xp.sum(g**2 * inv, axis=2)
-        if ye.ndim == 3:
-            a, bq = a[..., None], bq[..., None]
-        gain = gain + xp.sum(ye * a - 0.5 * ye**2 * bq, axis=1)
-    if getattr(gain, "ndim", 0) == 2:
-        return ll0, ll0[:, None] + gain
-    return ll0, ll0 + gain
+        e = ye if ye.ndim == 3 else ye[..., None]  # (I, N, M)
+        a = xp.sum(g * resid * inv, axis=2)[..., None]
+        bq = xp.sum(g**2 * inv, axis=2)[..., None]
+        ep_gain = ep_gain + xp.sum(e * a - 0.5 * e**2 * bq, axis=1)  # (I, M)
+        if has_shift and ys is not None:
+            sj = ys if ys.ndim == 3 else ys[..., None]  # (I, N, J)
+            A = xp.sum(dv * resid * inv, axis=2)[..., None]
+            B = xp.sum(dv**2 * inv, axis=2)[..., None]
+            C = xp.sum(dv * g * inv, axis=2)[..., None]
+            shift_gain = shift_gain + xp.sum(sj * A - 0.5 * sj**2 * B, axis=1)  # (I, J)
+            sc = sj * C
+            if xp is np:
+                cross = cross + np.einsum("inj,inm->ijm", sc, e)
+            else:
+                cross = cross + xp.matmul(sc.dimshuffle(0, 2, 1), e)
+    ll0 = ll0[:, None] if getattr(ll0, "ndim", 0) == 1 else xp.zeros((tb.n_individuals, 1))
+    if getattr(shift_gain, "ndim", 0) == 0:
+        shift_gain = xp.zeros((tb.n_individuals, 1))
+    if getattr(ep_gain, "ndim", 0) == 0:
+        ep_gain = xp.zeros((tb.n_individuals, 1))
+    ll_none = ll0 + shift_gain  # (I, J)
+    ll_episode = ll_none[:, :, None] + ep_gain[:, None, :] - cross  # (I, J, M)
+    return ll_none, ll_episode
+
+
+def episode_logliks(
+    tb: TimeBase, pred: Prediction, gamma, extra_sd, xp: ModuleType = np, shift_size=None
+):
+    """Per-individual log-likelihoods without and with the episode (one shift start).
+
+    A convenience over :func:`candidate_logliks` for one shift start (or
+    none): ``ll0`` ``(I,)`` and ``ll1`` (``(I,)``, or ``(I, M)`` with
+    candidate onsets).
+    """
+    ll_none, ll_ep = candidate_logliks(tb, pred, gamma, shift_size, extra_sd, xp=xp)
+    ll1 = ll_ep[:, 0, :]
+    return ll_none[:, 0], (ll1 if pred.blood_e.ndim == 3 else ll1[:, 0])

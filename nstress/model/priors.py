@@ -122,6 +122,20 @@ PRIORS: dict[str, dict[str, Any]] = {
         "(≈ +3.4 ‰ N, +0.4 to +1 ‰ C per level, Post 2002)",
         "source": "Post 2002",
     },
+    "shift_sd": {
+        "dist": "halfnormal",
+        "sigma": 1.5,
+        "doc": "SD of the size of one explicit diet shift per animal (‰), per isotope",
+        "source": "a trophic step moves δ15N ≈ +3.4 ‰ and δ13C +0.4 to +1 ‰ (Post 2002); "
+        "habitat shifts move δ13C by several ‰ (common practice)",
+    },
+    "shift_corr": {
+        "dist": "normal",
+        "mu": 0.3,
+        "sigma": 0.5,
+        "doc": "atanh of the N-C correlation of diet-shift sizes",
+        "source": "trophic steps move both isotopes the same way (Post 2002)",
+    },
     "growth_log_mean_sd": {
         "dist": "fixed",
         "value": 0.1,

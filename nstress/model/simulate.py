@@ -43,8 +43,15 @@ import pandas as pd
 
 from nstress import equations as eq
 from nstress.errors import ConfigError
-from nstress.model.forward import DEFAULT_KNOT_DAYS, Grid, Params, Prediction, make_grid, predict
-from nstress.model.forward import with_episode as _with_episode
+from nstress.model.forward import (
+    DEFAULT_KNOT_DAYS,
+    Grid,
+    Params,
+    Prediction,
+    expected,
+    make_grid,
+    predict,
+)
 from nstress.prep.timebase import DEFAULT_BIN_DAYS, TimeBase, build_timebase
 from nstress.tissues import DEFAULT_TISSUES, Tissue
 
@@ -646,9 +653,9 @@ def simulate_colony(spec: ColonySpec | None = None) -> Simulation:
     when = rng.uniform(0.0, 1.0, I) * (hi - lo) + lo
     step_at = np.clip(np.searchsorted(grid.knots, when, side="right") - 1, 0, K - 1)
     shift_t = 0.5 * (grid.knots[step_at] + grid.knots[step_at + 1])
-    rows = np.flatnonzero(has_shift)
-    steps[rows, step_at[rows], 0] += shift_dn[rows]
-    steps[rows, step_at[rows], 1] += shift_dc[rows]
+    # the shift is the model's explicit shift term: a ramp over one knot interval
+    shift_size = np.stack([shift_dn, shift_dc], axis=-1)
+    shift_start = grid.knots[step_at].astype(float)
     # tissues
     tdef = [reg[t] for t in tb.tissues]
     disc = np.array([[t.disc_d15N, t.disc_d13C] for t in tdef])
@@ -664,12 +671,13 @@ def simulate_colony(spec: ColonySpec | None = None) -> Simulation:
         disc=disc,
         rate=rate,
         growth=growth,
+        shift_size=shift_size,
+        shift_start=shift_start,
     )
 
     # (4) the same forward model the PyMC model uses, then noise ---------------
     pred = predict(tb, grid, params)
-    yb = _with_episode(pred.blood0, pred.blood_e, gamma)
-    yk = _with_episode(pred.keratin0, pred.keratin_e, gamma)
+    yb, yk = expected(pred, gamma, shift_size)
     sigma = math.hypot(spec.analytical_sd, spec.extra_sd)
     yb = yb + sigma * rng.standard_normal(yb.shape)
     yk = yk + sigma * rng.standard_normal(yk.shape)
