@@ -54,6 +54,8 @@ class ModelSpec:
     onset_step_days
         Spacing of the candidate episode onsets that the likelihood sums
         over (days).
+    shift_step_days
+        Spacing of the candidate diet-shift starts (days).
     priors
         Prior overrides (see :mod:`nstress.model.priors`).
     walk
@@ -82,6 +84,7 @@ class ModelSpec:
 
     knot_days: float = forward.DEFAULT_KNOT_DAYS
     onset_step_days: float = forward.DEFAULT_ONSET_STEP_DAYS
+    shift_step_days: float = forward.DEFAULT_SHIFT_STEP_DAYS
     priors: dict[str, dict[str, Any]] = field(default_factory=dict)
     reference_tissue: str | None = None
     walk: str = "noncentred"
@@ -275,7 +278,11 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
     pr = resolve_priors(spec.priors)
     if not spec.onset_step_days > 0:
         raise ConfigError("onset_step_days must be > 0", key="model.onset_step_days")
-    grid = forward.make_grid(tb, spec.knot_days, onset_step=spec.onset_step_days)
+    if not spec.shift_step_days > 0:
+        raise ConfigError("shift_step_days must be > 0", key="model.shift_step_days")
+    grid = forward.make_grid(
+        tb, spec.knot_days, onset_step=spec.onset_step_days, shift_step=spec.shift_step_days
+    )
     I, G = tb.n_individuals, len(tb.groups)  # noqa: E741
     gi = tb.group_index
     n_tis = len(tb.tissues)

@@ -21,6 +21,7 @@ from nstress.prep.timebase import TimeBase
 DEFAULT_KNOT_DAYS = 16.0
 DEFAULT_KERATIN_POINTS = 6
 DEFAULT_ONSET_STEP_DAYS = 6.0
+DEFAULT_SHIFT_STEP_DAYS = 8.0
 ONSET_LEAD_DAYS = 30.0
 """Candidate onsets start this long before an individual's earliest sampled time."""
 
@@ -102,6 +103,7 @@ def make_grid(
     knot_days: float = DEFAULT_KNOT_DAYS,
     keratin_points: int = DEFAULT_KERATIN_POINTS,
     onset_step: float = DEFAULT_ONSET_STEP_DAYS,
+    shift_step: float | None = None,
 ) -> Grid:
     """Knots every ``knot_days`` across the padded grid, the walk basis, blood lags, onsets.
 
@@ -115,6 +117,9 @@ def make_grid(
         Quadrature points per keratin growth window (diet path).
     onset_step
         Spacing of the candidate episode onsets (days), see :func:`onset_grid`.
+    shift_step
+        Spacing of the candidate diet-shift starts (days; default the knot
+        spacing), see :func:`shift_grid`.
     """
     span = tb.T * tb.bin_width
     n_knots = max(int(np.ceil(span / knot_days)) + 1, 2)
@@ -125,7 +130,7 @@ def make_grid(
     slot = np.zeros(tb.tissue_class.__len__(), dtype=np.int64)
     slot[blood_tissues] = np.arange(len(blood_tissues))
     onsets, onset_mask = onset_grid(tb, onset_step)
-    shifts, shift_mask = shift_grid(tb, knots)
+    shifts, shift_mask = shift_grid(tb, knots, shift_step)
     return Grid(
         knots=knots,
         walk=eq.anchored_walk_matrix(n_knots, anchor),
@@ -189,12 +194,18 @@ def onset_grid(tb: TimeBase, step: float) -> tuple[np.ndarray, np.ndarray]:
     return np.where(mask, onsets, lo[:, None]), mask
 
 
-def shift_grid(tb: TimeBase, knots: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Candidate diet-shift starts per individual: knots whose ramp overlaps the sampled span.
+def shift_grid(
+    tb: TimeBase, knots: np.ndarray, step: float | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Candidate diet-shift starts per individual, where the shift's ramp meets the samples.
 
-    A shift is a ramp from one knot to the next (:func:`nstress.equations.ramp`);
-    one starting after the last sample, or ending before the earliest sampled
-    time, leaves no trace. Rows are padded to a common count J.
+    A shift is a ramp over one knot spacing (:func:`nstress.equations.ramp`);
+    candidates start every ``step`` days (default: the knot spacing) from the
+    first knot, keeping those whose ramp overlaps the sampled span (one that
+    starts after the last sample or ends before the earliest leaves no
+    trace). A step finer than the knots matters: with knot-aligned starts a
+    keratin-only animal's growth rate had one mode per knot (the rate that
+    puts the shift exactly on a knot). Rows are padded to a common count J.
 
     Returns
     -------
@@ -203,16 +214,15 @@ def shift_grid(tb: TimeBase, knots: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     """
     lo, hi = sampled_span(tb)
     spacing = float(knots[1] - knots[0])
-    starts = knots[:-1]
+    step = spacing if step is None else float(step)
+    starts = knots[0] + step * np.arange(int(np.floor((knots[-1] - knots[0]) / step)) + 1)
     ok = (starts[None, :] + spacing > lo[:, None]) & (starts[None, :] < hi[:, None])
     ok[~ok.any(axis=1), 0] = True
     n = ok.sum(axis=1)
     J = int(n.max())
-    out = np.zeros((tb.n_individuals, J))
     mask = np.arange(J)[None, :] < n[:, None]
-    for_rows = np.argsort(~ok, axis=1, kind="stable")[:, :J]  # the candidate knots, in order
-    out[:] = starts[for_rows]
-    out = np.where(mask, out, out[:, :1])
+    order = np.argsort(~ok, axis=1, kind="stable")[:, :J]  # the candidates, in time order
+    out = np.where(mask, starts[order], starts[order][:, :1])
     return out, mask
 
 
