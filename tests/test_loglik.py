@@ -1,13 +1,20 @@
-"""The mixture likelihood: one implementation (forward.episode_logliks) for model and products."""
+"""The mixture likelihood: one implementation (forward.candidate_logliks) for model and products."""
 
 import numpy as np
 import pytensor
 import pytensor.tensor as pt
 from scipy.stats import norm
 
-from nstress.model.forward import candidate_logliks, episode_logliks, expected, make_grid, predict
+from nstress.model.forward import candidate_logliks, expected, make_grid, predict
 from nstress.model.simulate import ColonySpec, simulate_colony, table_to_samples
 from nstress.prep.timebase import build_timebase
+
+
+def _no_shift_logliks(tb, pred, gamma, extra, xp=np):
+    """(ll0, ll1) without a shift: the first column of each table (one onset: (I,))."""
+    ll_none, ll_ep = candidate_logliks(tb, pred, gamma, None, extra, xp=xp)
+    ll1 = ll_ep[:, 0, :]
+    return ll_none[:, 0], (ll1 if pred.blood_e.ndim == 3 else ll1[:, 0])
 
 
 def _setup():
@@ -23,7 +30,7 @@ def test_numpy_loglik_is_the_gaussian_density():
     p = sim.params
     pred = predict(tb, grid, p)
     extra = np.full((len(tb.tissues), 2), 0.07)
-    ll0, ll1 = episode_logliks(tb, pred, p.gamma, extra)
+    ll0, ll1 = _no_shift_logliks(tb, pred, p.gamma, extra)
     ref0 = np.zeros(tb.n_individuals)
     ref1 = np.zeros(tb.n_individuals)
     for o, y0, ye in (
@@ -46,10 +53,10 @@ def test_pytensor_and_numpy_logliks_agree():
     sim, tb, grid = _setup()
     p = sim.params
     extra = np.full((len(tb.tissues), 2), 0.07)
-    ll0, ll1 = episode_logliks(tb, predict(tb, grid, p), p.gamma, extra)
+    ll0, ll1 = _no_shift_logliks(tb, predict(tb, grid, p), p.gamma, extra)
     gamma = pt.vector("gamma")
     pred = predict(tb, grid, p, xp=np)
-    tl0, tl1 = episode_logliks(tb, pred, gamma, pt.as_tensor(extra), xp=pt)
+    tl0, tl1 = _no_shift_logliks(tb, pred, gamma, pt.as_tensor(extra), xp=pt)
     f = pytensor.function([gamma], [tl0, tl1], mode="FAST_COMPILE")
     a0, a1 = f(np.asarray(p.gamma, dtype=float))
     np.testing.assert_allclose(a0, ll0, rtol=1e-12)
@@ -64,13 +71,13 @@ def test_candidate_onsets_give_the_single_onset_likelihood_per_column():
     sim, tb, grid = _setup()
     p = sim.params
     extra = np.full((len(tb.tissues), 2), 0.07)
-    _, ll_grid = episode_logliks(
+    _, ll_grid = _no_shift_logliks(
         tb, predict(tb, grid, dataclasses.replace(p, onset=grid.onset_days)), p.gamma, extra
     )
     assert ll_grid.shape == grid.onset_days.shape
     for m in (0, grid.onset_days.shape[1] // 2, grid.onset_days.shape[1] - 1):
         one = dataclasses.replace(p, onset=grid.onset_days[:, m])
-        _, ll1 = episode_logliks(tb, predict(tb, grid, one), p.gamma, extra)
+        _, ll1 = _no_shift_logliks(tb, predict(tb, grid, one), p.gamma, extra)
         np.testing.assert_allclose(ll_grid[:, m], ll1, rtol=1e-12)
 
 
@@ -92,21 +99,28 @@ def test_onset_grid_covers_what_the_samples_see():
 
 
 def test_onset_weights_are_a_normalised_discretised_normal():
-    from nstress.model.build import onset_log_weights
+    from nstress.model.build import onset_log_weights_grid
 
     sim, tb, grid = _setup()
     c_abs = grid.onset_days + tb.origin_offset[:, None]
-    mu = np.nanmean(np.where(grid.onset_mask, c_abs, np.nan), axis=1)
+    mu_grid = np.array([np.nanmin(np.where(grid.onset_mask, c_abs, np.nan)), 300.0, 350.0])
     sd = 10.0
-    lw = onset_log_weights(grid, tb, mu, sd)
-    w = np.where(grid.onset_mask, np.exp(lw), 0.0)
-    np.testing.assert_allclose(w.sum(axis=1), 1.0, rtol=1e-12)
+    lw = onset_log_weights_grid(grid, tb, mu_grid, sd)  # (I, K, M)
+    w = np.where(grid.onset_mask[:, None, :], np.exp(lw), 0.0)
+    np.testing.assert_allclose(w.sum(axis=2), 1.0, rtol=1e-12)
     sd_eff = np.hypot(sd, grid.onset_step / np.sqrt(12.0))
-    ref = np.where(grid.onset_mask, norm.pdf(c_abs, mu[:, None], sd_eff), 0.0)
-    np.testing.assert_allclose(w, ref / ref.sum(axis=1, keepdims=True), rtol=1e-10)
-    # the same function with draws (S, I) and (S,)
-    lw_s = onset_log_weights(grid, tb, np.stack([mu, mu]), np.array([sd, sd]))
-    np.testing.assert_allclose(lw_s[1], lw, rtol=1e-12)
+    for k, mu in enumerate(mu_grid):
+        ref = np.where(grid.onset_mask, norm.pdf(c_abs, mu, sd_eff), 0.0)
+        np.testing.assert_allclose(w[:, k], ref / ref.sum(axis=1, keepdims=True), rtol=1e-10)
+    # the PyTensor graph gives the same numbers
+    sd_t = pt.scalar("sd")
+    f = pytensor.function([sd_t], onset_log_weights_grid(grid, tb, mu_grid, sd_t, xp=pt))
+    got = f(sd)
+    np.testing.assert_allclose(
+        got[:, :, :][np.broadcast_to(grid.onset_mask[:, None], got.shape)],
+        lw[np.broadcast_to(grid.onset_mask[:, None], lw.shape)],
+        rtol=1e-12,
+    )
 
 
 def test_shift_and_episode_tables_are_the_gaussian_density_of_each_pair():
@@ -155,12 +169,7 @@ def test_mixture_over_group_onsets_matches_explicit_enumeration():
     # indicator; check it against a plain loop over every combination
     import dataclasses
 
-    from nstress.model.build import (
-        episode_mixture,
-        group_onset_grid,
-        onset_log_weights,
-        onset_log_weights_grid,
-    )
+    from nstress.model.build import episode_mixture, group_onset_grid, onset_log_weights_grid
 
     sim, tb, grid = _setup()
     p = sim.params
@@ -175,10 +184,6 @@ def test_mixture_over_group_onsets_matches_explicit_enumeration():
     sd = 9.0
     logw = onset_log_weights_grid(grid, tb, mu_grid, sd)
     k = len(mu_grid) // 2
-    np.testing.assert_allclose(
-        logw[:, k][grid.onset_mask],
-        onset_log_weights(grid, tb, np.full(tb.n_individuals, mu_grid[k]), sd)[grid.onset_mask],
-    )
     pi = 0.3
     lp0, lp1 = episode_mixture(
         ll_none,

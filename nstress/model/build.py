@@ -136,13 +136,16 @@ def data_centre(tb: TimeBase) -> np.ndarray:
     return np.where(np.isnan(c), 0.0, c)
 
 
-def onset_log_weights(grid: forward.Grid, tb: TimeBase, mu: Any, sd: Any, xp: Any = np) -> Any:
-    """Log prior weights ``(I, M)`` of the candidate onsets, normalised per individual.
+def onset_log_weights_grid(
+    grid: forward.Grid, tb: TimeBase, mu_grid: np.ndarray, sd: Any, xp: Any = np
+) -> Any:
+    """Log prior weights ``(I, K, M)`` of the candidate onsets, per candidate group mean μ_k.
 
-    The onset prior Normal(μ_on,g, σ_on) (group time) is discretised on the
-    candidate grid with σ widened by the grid's own spread,
-    σ_eff² = σ_on² + step²/12 (a uniform spread within a grid cell), so that
-    the weights stay smooth in μ and σ even when σ_on is below the spacing.
+    The onset prior Normal(μ_k, σ_on) (group time) is discretised on each
+    individual's candidate onsets and normalised over them, with σ widened
+    by the grid's own spread, σ_eff² = σ_on² + step²/12 (a uniform spread
+    within a grid cell), so that the weights stay smooth in σ even when σ_on
+    is below the spacing.
 
     Parameters
     ----------
@@ -150,46 +153,19 @@ def onset_log_weights(grid: forward.Grid, tb: TimeBase, mu: Any, sd: Any, xp: An
         Grid with the candidate onsets.
     tb
         Time base (for each individual's origin offset).
-    mu
-        ``(I,)`` group mean onset of each individual's group (days since the
-        earliest origin), or ``(S, I)`` for S draws.
+    mu_grid
+        ``(K,)`` candidate group mean onsets (days since the earliest origin).
     sd
-        Between-animal SD of onset (days), scalar or ``(S,)``.
+        Between-animal SD of onset (days), a scalar.
     xp
         Array namespace.
-    """
-    c_abs = grid.onset_days + tb.origin_offset[:, None]  # (I, M)
-    sd = sd if xp is not np else np.asarray(sd, float)
-    sd_eff = xp.sqrt(sd**2 + grid.onset_step**2 / 12.0)
-    if xp is np and np.ndim(mu) == 2:
-        z = (c_abs[None] - mu[..., None]) / sd_eff.reshape(-1, 1, 1)
-    else:
-        z = (c_abs - mu[:, None]) / sd_eff
-    logw = xp.where(grid.onset_mask, -0.5 * z**2, -1e10)
-    if xp is np:
-        top = logw.max(axis=-1, keepdims=True)
-        lse = top + np.log(np.exp(logw - top).sum(axis=-1, keepdims=True))
-    else:
-        lse = pt.logsumexp(logw, axis=-1, keepdims=True)
-    return logw - lse
-
-
-def onset_log_weights_grid(
-    grid: forward.Grid, tb: TimeBase, mu_grid: np.ndarray, sd: Any, xp: Any = np
-) -> Any:
-    """Log onset weights ``(I, K, M)`` for every candidate group mean onset μ_k.
-
-    As :func:`onset_log_weights`, for each of the K values of ``mu_grid``
-    (days since the earliest origin, shared by all groups).
     """
     c_abs = (grid.onset_days + tb.origin_offset[:, None])[:, None, :]  # (I, 1, M)
     sd_eff = xp.sqrt(sd**2 + grid.onset_step**2 / 12.0)
     z = (c_abs - np.asarray(mu_grid, float)[None, :, None]) / sd_eff
     logw = xp.where(grid.onset_mask[:, None, :], -0.5 * z**2, -1e10)
-    if xp is np:
-        top = logw.max(axis=-1, keepdims=True)
-        return logw - (top + np.log(np.exp(logw - top).sum(axis=-1, keepdims=True)))
-    return logw - pt.logsumexp(logw, axis=-1, keepdims=True)
+    lse = pt.logsumexp if xp is not np else _np_logsumexp
+    return logw - lse(logw, axis=-1, keepdims=True)
 
 
 def group_onset_grid(
@@ -247,10 +223,11 @@ def episode_mixture(ll_none, ll_ep, log_u, onset_logw, log_pi, log_1m_pi, xp: An
     return lp0, lp1
 
 
-def _np_logsumexp(a: np.ndarray, axis: int) -> np.ndarray:
+def _np_logsumexp(a: np.ndarray, axis: int, keepdims: bool = False) -> np.ndarray:
     top = np.max(a, axis=axis, keepdims=True)
     top = np.where(np.isfinite(top), top, 0.0)
-    return np.squeeze(top, axis) + np.log(np.sum(np.exp(a - top), axis=axis))
+    out = top + np.log(np.sum(np.exp(a - top), axis=axis, keepdims=True))
+    return out if keepdims else np.squeeze(out, axis)
 
 
 def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
@@ -458,8 +435,6 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
                 ),
                 dims=(dims.INDIVIDUAL, dims.ISOTOPE),
             )
-        n_shift = grid.shift_mask.sum(axis=1, keepdims=True)
-        shift_log_u = np.where(grid.shift_mask, -np.log(n_shift), -1e10)  # uniform start
 
         # ---- likelihood --------------------------------------------------
         params = forward.Params(
@@ -478,8 +453,7 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         )
         pred = forward.predict(tb, grid, params, xp=pt)
         ll_none, ll_ep = forward.candidate_logliks(tb, pred, gamma, shift, extra_sd, xp=pt)
-        log_u = shift_log_u if spec.diet_shift else np.zeros((I, 1))
-        lp_none = pt.logsumexp(log_u + ll_none, axis=1)
+        log_u = forward.shift_log_prior(grid, spec.diet_shift)
         if spec.episodes:
             lp0, lp1 = episode_mixture(
                 ll_none, ll_ep, log_u, onset_log_w, pt.log(pi[gi]), pt.log1p(-pi[gi]), xp=pt
@@ -489,7 +463,7 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             by_group = mu_log_prior + pt.dot(onehot, per_mu)  # (G, K)
             pm.Potential("mixture", pt.sum(pt.logsumexp(by_group, axis=1)))
         else:
-            pm.Potential("no_episode", pt.sum(lp_none))
+            pm.Potential("no_episode", pt.sum(pt.logsumexp(log_u + ll_none, axis=1)))
         # P(episode), P(onset) and P(shift start) given the continuous parameters are
         # recomputed per draw after sampling with the same functions (nstress.model.draws),
         # which keeps the forward model out of the compiled "expand" function.

@@ -44,9 +44,7 @@ class Draws:
     individual (seeded), drawn from ``p_cond``. The model sums the onset over
     candidate onsets; ``params["onset"]`` holds one onset per draw and
     individual drawn (seeded) from its conditional probabilities given the
-    draw's parameters and an episode, and ``onset_prob`` ``(I, M)`` is the
-    posterior probability of each candidate onset given an episode
-    (Rao-Blackwellised: the mean of those conditional probabilities).
+    draw's parameters and an episode (likewise ``params["shift_start"]``).
     """
 
     params: dict[str, np.ndarray]
@@ -54,7 +52,6 @@ class Draws:
     p_cond: np.ndarray  # (S, I)
     episode: np.ndarray  # (S, I) bool
     gamma_ind: np.ndarray  # (S, I)
-    onset_prob: np.ndarray | None = None  # (I, M)
 
     @property
     def n(self) -> int:
@@ -100,16 +97,11 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
     # episode) and the shift start (given the indicator), all drawn with one seeded stream.
     pi = flat["p_episode_group"][:, gi]
     has_shift = "shift" in flat
-    if has_shift:
-        n_sh = grid.shift_mask.sum(axis=1, keepdims=True)
-        log_u = np.where(grid.shift_mask, -np.log(n_sh), -np.inf)
-    else:
-        log_u = np.zeros((n_i, 1))
+    log_u = forward.shift_log_prior(grid, has_shift)
     rng = np.random.default_rng(seed)
     onset = np.zeros((n_s, n_i))
     start = np.zeros((n_s, n_i))
     mu = np.zeros((n_s, len(tb.groups)))
-    prob = np.zeros(grid.onset_days.shape)
     rows = np.arange(n_i)
     M = grid.onset_days.shape[1]
     onehot = (gi[None, :] == np.arange(len(tb.groups))[:, None]).astype(float)
@@ -142,12 +134,10 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
         onset[s] = grid.onset_days[rows, k1 % M]
         j = np.where(z, k1 // M, k0)
         start[s] = grid.shift_days[rows, j]
-        prob += q1.reshape(n_i, -1, M).sum(axis=1)
     flat["onset_group"] = mu
     flat["onset"] = onset
     if has_shift:
         flat["shift_start"] = start
-    d.onset_prob = prob / max(n_s, 1)
     return d
 
 
@@ -181,11 +171,8 @@ def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:
         "ikj,sijc->sikc", grid.walk, p["diet_steps"]
     )
     diet = np.einsum("tk,sikc->sitc", grid.basis, values)
-    if "shift" in p:  # the same anchored ramp as forward.predict
-        st = p["shift_start"][..., None]
-        at_anchor = eq.ramp(grid.knots[grid.anchor][None, :, None], st, grid.spacing)
-        ramp = eq.ramp(tb.bin_mid[None, None, :], st, grid.spacing) - at_anchor
-        diet = diet + ramp[..., None] * p["shift"][:, :, None, :]
+    if "shift" in p:
+        diet = diet + forward.shift_path(grid, tb.bin_mid, p["shift_start"], p["shift"])
     t = tb.bin_mid[None, None, :]
     on, du = p["onset"][..., None], p["duration"][..., None]
     enrich = eq.enrichment(t, on, du, p["kappa"][..., None], p["tau_rec"][..., None])

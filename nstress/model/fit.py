@@ -8,6 +8,7 @@ times slower).
 
 from __future__ import annotations
 
+import dataclasses
 import importlib.util
 import logging
 import time
@@ -168,8 +169,6 @@ def _damp_start_jitter(compiled: Any, model: pm.Model) -> Any:
     ``model.free_RVs``); the others' jitter is scaled by
     :data:`START_DAMPING`.
     """
-    import dataclasses
-
     point = model.initial_point()
     centre, damp = [], []
     for rv in model.free_RVs:

@@ -226,6 +226,30 @@ def shift_grid(
     return out, mask
 
 
+def shift_log_prior(grid: Grid, enabled: bool = True) -> np.ndarray:
+    """Log prior ``(I, J)`` of the candidate shift starts: uniform over each row's real ones.
+
+    Without a shift (``enabled=False``) a single column of zeros.
+    """
+    if not enabled:
+        return np.zeros((grid.shift_days.shape[0], 1))
+    n = grid.shift_mask.sum(axis=1, keepdims=True)
+    return np.where(grid.shift_mask, -np.log(n), -1e10)
+
+
+def shift_path(grid: Grid, t: np.ndarray, start: Any, size: Any, xp: ModuleType = np) -> Any:
+    """Return a diet shift on the times ``t`` ``(T,)``: size × (ramp(t) − ramp at the anchor).
+
+    ``start`` is ``(..., I)`` and ``size`` ``(..., I, 2)``; the result is
+    ``(..., I, T, 2)``, zero at each individual's anchor knot (as the walk
+    is). The ramp rises over one knot spacing (:func:`nstress.equations.ramp`).
+    """
+    w = grid.spacing
+    at_anchor = eq.ramp(grid.knots[grid.anchor], start, w, xp=xp)  # (..., I)
+    r = eq.ramp(t, start[..., None], w, xp=xp) - at_anchor[..., None]
+    return r[..., None] * size[..., None, :]
+
+
 def _anchor_knots(tb: TimeBase, knots: np.ndarray) -> np.ndarray:
     """Knot nearest the median time of each individual's samples (keratin at nominal growth)."""
     times = []
@@ -295,7 +319,8 @@ class Prediction:
     ``(I, N)`` or ``(I, N, J)`` for J candidate starts; the shift adds
     Δ·s to each isotope. ``blood0``/``keratin0`` exclude the shift and the
     episode (see :func:`expected`). ``diet`` ``(I, T, 2)`` includes a single
-    shift; ``enrich`` (``(I, T)`` or ``(I, T, M)``) is the enrichment.
+    shift; ``enrich`` ``(I, T)`` is the enrichment for one onset (``None``
+    with candidate onsets).
     """
 
     diet: Any
@@ -346,7 +371,16 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
     on = (p.onset[:, None] if single else p.onset)[:, None, :]  # (I, 1, M)
     duration = p.duration[:, None, None]
     kappa, tau = p.kappa[:, None, None], p.tau_rec[:, None, None]
-    enrich = eq.enrichment(tb.bin_mid[None, :, None], on, duration, kappa, tau, xp=xp)
+    enrich = None  # on the bins: only for one onset per individual (not needed for candidates)
+    if single:
+        enrich = eq.enrichment(
+            tb.bin_mid[None, :],
+            p.onset[:, None],
+            p.duration[:, None],
+            p.kappa[:, None],
+            p.tau_rec[:, None],
+            xp=xp,
+        )
 
     # blood: one-compartment filter of the diet on the bins, for animals with blood
     b = tb.blood
@@ -401,7 +435,7 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
         t_lo[..., None], t_hi[..., None], on, duration, kappa, tau, ref=ref, xp=xp
     )
     if single:
-        enrich, blood_e, keratin_e = enrich[..., 0], blood_e[..., 0], keratin_e[..., 0]
+        blood_e, keratin_e = blood_e[..., 0], keratin_e[..., 0]
 
     # diet shift: a ramp over one knot spacing, anchored (0 at the anchor knot)
     blood_s = keratin_s = None
@@ -418,8 +452,7 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
         if one_shift:
             blood_s, keratin_s = blood_s[..., 0], keratin_s[..., 0]
             if p.shift_size is not None:
-                on_bins = eq.ramp(tb.bin_mid[None, :, None], st, w, xp=xp) - at_anchor
-                diet = diet + on_bins * p.shift_size[:, None, :]
+                diet = diet + shift_path(grid, tb.bin_mid, p.shift_start, p.shift_size, xp=xp)
     return Prediction(
         diet=diet,
         enrich=enrich,
@@ -543,17 +576,3 @@ def candidate_logliks(
     ll_none = ll0 + shift_gain  # (I, J)
     ll_episode = ll_none[:, :, None] + ep_gain[:, None, :] - cross  # (I, J, M)
     return ll_none, ll_episode
-
-
-def episode_logliks(
-    tb: TimeBase, pred: Prediction, gamma, extra_sd, xp: ModuleType = np, shift_size=None
-):
-    """Per-individual log-likelihoods without and with the episode (one shift start).
-
-    A convenience over :func:`candidate_logliks` for one shift start (or
-    none): ``ll0`` ``(I,)`` and ``ll1`` (``(I,)``, or ``(I, M)`` with
-    candidate onsets).
-    """
-    ll_none, ll_ep = candidate_logliks(tb, pred, gamma, shift_size, extra_sd, xp=xp)
-    ll1 = ll_ep[:, 0, :]
-    return ll_none[:, 0], (ll1 if pred.blood_e.ndim == 3 else ll1[:, 0])
