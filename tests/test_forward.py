@@ -362,3 +362,36 @@ def test_pytensor_gradient_matches_finite_differences(sim):
     assert np.abs(g_growth).min() > 1e-3  # every animal's windows move with its growth
     ker = [j for j, c in enumerate(tb.tissue_class) if c == "keratin"]
     assert np.all(g_rate[ker] == 0) and np.all(np.abs(np.delete(g_rate, ker)) > 1e-3)
+
+
+def test_phase_offset_is_uniform_and_wraps_smoothly():
+    from scipy import stats
+
+    from nstress.model.forward import phase_offset
+
+    step = 8.0
+    rng = np.random.default_rng(5)
+    off = phase_offset(rng.standard_normal((20000, 2)), step)
+    assert off.min() >= 0.0 and off.max() < step
+    # a rotation-invariant prior on the plane gives a uniform offset
+    assert stats.kstest(off / step, "uniform").pvalue > 0.01
+    # continuous in the angle away from the cut at angle ±π, where it wraps by one step
+    ang = np.linspace(-np.pi + 1e-6, np.pi - 1e-6, 1001)
+    o = phase_offset(np.stack([np.cos(ang), np.sin(ang)], axis=-1), step)
+    np.testing.assert_allclose(np.diff(o), step / 1000 * (1 - 2e-6 / (2 * np.pi)), rtol=1e-4)
+    assert o[0] < 1e-5 and o[-1] > step - 1e-5
+
+
+def test_shift_candidates_reach_past_both_ends_of_the_samples(sim):
+    from nstress.model.forward import sampled_span
+
+    _, tb, grid = sim
+    lo, hi = sampled_span(tb)
+    n = grid.shift_mask.sum(axis=1)
+    first = grid.shift_days[:, 0]
+    last = grid.shift_days[np.arange(len(n)), n - 1]
+    # the first candidate's ramp is done before the earliest sample, the last starts after the
+    # latest: both leave no trace, so wrapping the offset from one step to the next is seamless
+    assert np.all(first + grid.spacing <= lo + 1e-9)
+    assert np.all(last >= hi - 1e-9)
+    assert np.all(np.diff(grid.shift_days, axis=1)[grid.shift_mask[:, 1:]] > 0)

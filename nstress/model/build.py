@@ -106,6 +106,8 @@ class BuiltModel:
     reference_tissue: str
     mu_grid: np.ndarray | None = None
     mu_log_prior: np.ndarray | None = None
+    start: dict[str, np.ndarray] = field(default_factory=dict)
+    """Start values of free variables whose prior centre is a poor start (by name)."""
 
 
 def _coords(tb: TimeBase, grid: forward.Grid) -> dict[str, Any]:
@@ -118,6 +120,7 @@ def _coords(tb: TimeBase, grid: forward.Grid) -> dict[str, Any]:
         dims.GROUP: [str(g) for g in tb.groups],
         "knot_step": np.arange(grid.n_steps),
         "keratin_tissue": list(tb.keratin_tissues) or ["none"],
+        "plane": ["x", "y"],
     }
 
 
@@ -137,7 +140,12 @@ def data_centre(tb: TimeBase) -> np.ndarray:
 
 
 def onset_log_weights_grid(
-    grid: forward.Grid, tb: TimeBase, mu_grid: np.ndarray, sd: Any, xp: Any = np
+    grid: forward.Grid,
+    tb: TimeBase,
+    mu_grid: np.ndarray,
+    sd: Any,
+    xp: Any = np,
+    offset: Any = 0.0,
 ) -> Any:
     """Log prior weights ``(I, K, M)`` of the candidate onsets, per candidate group mean μ_k.
 
@@ -159,8 +167,12 @@ def onset_log_weights_grid(
         Between-animal SD of onset (days), a scalar.
     xp
         Array namespace.
+    offset
+        ``(I,)`` offset of each individual's candidates (days,
+        :func:`nstress.model.forward.phase_offset`), or 0.
     """
-    c_abs = (grid.onset_days + tb.origin_offset[:, None])[:, None, :]  # (I, 1, M)
+    off = offset[:, None] if getattr(offset, "ndim", 0) == 1 else offset
+    c_abs = (grid.onset_days + tb.origin_offset[:, None] + off)[:, None, :]  # (I, 1, M)
     sd_eff = xp.sqrt(sd**2 + grid.onset_step**2 / 12.0)
     z = (c_abs - np.asarray(mu_grid, float)[None, :, None]) / sd_eff
     logw = xp.where(grid.onset_mask[:, None, :], -0.5 * z**2, -1e10)
@@ -230,6 +242,29 @@ def _np_logsumexp(a: np.ndarray, axis: int, keepdims: bool = False) -> np.ndarra
     return out if keepdims else np.squeeze(out, axis)
 
 
+def _phase(name: str, step: float, n: int, start: dict[str, np.ndarray]) -> Any:
+    """Per-individual offset ``(I,)`` in ``[0, step)`` days of a candidate grid.
+
+    A point on the plane per individual, standard normal times a soft ring
+    (radius 1, SD :data:`nstress.model.forward.RING_SD`) that keeps it away
+    from the origin, where its angle would change fastest; both factors are
+    rotation-invariant, so the offset's prior is uniform. Chains start on
+    the ring (``start``, a value per variable name), not at the origin.
+    """
+    xy = pm.Normal(
+        f"{name}_xy",
+        0.0,
+        1.0,
+        dims=(dims.INDIVIDUAL, "plane"),
+    )
+    start[xy.name] = np.tile([1.0, 0.0], (n, 1))
+    r = pt.sqrt(pt.sum(xy**2, axis=1))
+    pm.Potential(f"{name}_ring", -0.5 * pt.sum(((r - 1.0) / forward.RING_SD) ** 2))
+    return pm.Deterministic(
+        f"{name}_offset", forward.phase_offset(xy, step, xp=pt), dims=dims.INDIVIDUAL
+    )
+
+
 def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
     """Build the colony model.
 
@@ -287,6 +322,7 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
     end_days = tb.n_bins * tb.bin_width
     step_mask[:] = (grid.knots[1:][None, :] <= end_days[:, None] + spec.knot_days).astype(float)
 
+    start: dict[str, np.ndarray] = {}
     with pm.Model(coords=_coords(tb, grid)) as model:
         # ---- episode presence (marginalised) ---------------------------
         p = pr["p_episode"]
@@ -349,7 +385,11 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         # the group mean onset μ is summed out too, over mu_grid (group_onset_grid)
         sd_on = pm.HalfNormal("onset_sd", sigma=pr["onset_sd"]["sigma"])
         mu_grid, mu_log_prior = group_onset_grid(grid, tb, g_mid, g_half)
-        onset_log_w = onset_log_weights_grid(grid, tb, mu_grid, sd_on, xp=pt)  # (I, K, M)
+        # candidates move together by a sampled offset (a continuous onset, see _phase)
+        onset_off = _phase("onset_phase", grid.onset_step, I, start) if spec.episodes else 0.0
+        onset_log_w = onset_log_weights_grid(
+            grid, tb, mu_grid, sd_on, xp=pt, offset=onset_off
+        )  # (I, K, M)
 
         def _lognormal_group(name: str, key: str) -> Any:
             m = pm.Normal(
@@ -418,7 +458,10 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
 
         # ---- one explicit diet shift (start summed out over the knots) ---------
         shift = None
+        shift_starts = None
         if spec.diet_shift:
+            shift_off = _phase("shift_phase", spec.shift_step_days, I, start)
+            shift_starts = grid.shift_days + shift_off[:, None]
             sh_sd = pm.HalfNormal("shift_sd", sigma=pr["shift_sd"]["sigma"], dims=dims.ISOTOPE)
             sh_rho = pt.tanh(
                 pm.Normal("shift_corr_z", pr["shift_corr"]["mu"], pr["shift_corr"]["sigma"])
@@ -440,7 +483,7 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         params = forward.Params(
             baseline=baseline,
             steps=steps,
-            onset=grid.onset_days,
+            onset=grid.onset_days + (onset_off[:, None] if spec.episodes else 0.0),
             duration=duration,
             kappa=kappa,
             tau_rec=tau_rec,
@@ -449,7 +492,7 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             rate=rate,
             growth=growth,
             shift_size=shift,
-            shift_start=grid.shift_days if spec.diet_shift else None,
+            shift_start=shift_starts,
         )
         pred = forward.predict(tb, grid, params, xp=pt)
         ll_none, ll_ep = forward.candidate_logliks(tb, pred, gamma, shift, extra_sd, xp=pt)
@@ -476,4 +519,5 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
         reference_tissue=ref,
         mu_grid=mu_grid,
         mu_log_prior=mu_log_prior,
+        start=start,
     )

@@ -32,6 +32,8 @@ PARAM_NAMES = (
     "extra_sd",
     "p_episode_group",
     "shift",
+    "onset_phase_offset",
+    "shift_phase_offset",
 )
 
 
@@ -79,7 +81,8 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
     """
     n_chain, n_draw = post.n_chains_draws(idata)
     per_chain = max(1, max_draws // n_chain)
-    arrays = post.subset_draws(idata, list(PARAM_NAMES), max_draws=per_chain)
+    names = [n for n in PARAM_NAMES if post.has_var(idata, n)]
+    arrays = post.subset_draws(idata, names, max_draws=per_chain)
     cd = arrays["duration"].shape[:2]
     flat = {k: v.reshape((-1,) + v.shape[2:]) for k, v in arrays.items()}
     tb, grid = built.timebase, built.grid
@@ -105,15 +108,20 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
     rows = np.arange(n_i)
     M = grid.onset_days.shape[1]
     onehot = (gi[None, :] == np.arange(len(tb.groups))[:, None]).astype(float)
+    zero = np.zeros((n_s, n_i))
+    onset_off = flat.get("onset_phase_offset", zero)
+    shift_off = flat.get("shift_phase_offset", zero)
     for s in range(n_s):
-        pred = predictions(
-            built, d, s, onset=grid.onset_days, shift_start=grid.shift_days if has_shift else None
-        )
+        onsets = grid.onset_days + onset_off[s][:, None]  # (I, M)
+        starts = grid.shift_days + shift_off[s][:, None]  # (I, J)
+        pred = predictions(built, d, s, onset=onsets, shift_start=starts if has_shift else None)
         shift = flat["shift"][s] if has_shift else None
         ll_none, ll_ep = forward.candidate_logliks(
             tb, pred, d.gamma_ind[s], shift, flat["extra_sd"][s]
         )
-        logw_k = onset_log_weights_grid(grid, tb, built.mu_grid, flat["onset_sd"][s])
+        logw_k = onset_log_weights_grid(
+            grid, tb, built.mu_grid, flat["onset_sd"][s], offset=onset_off[s]
+        )
         lp0, lp1 = episode_mixture(ll_none, ll_ep, log_u, logw_k, np.log(pi[s]), np.log1p(-pi[s]))
         per_mu = np.logaddexp(lp0[:, None], lp1)  # (I, K)
         _, post_mu = _normalise(built.mu_log_prior + onehot @ per_mu)  # (G, K)
@@ -131,9 +139,9 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
         _, q1 = _normalise(l1)
         k1 = _draw_index(rng, q1)
         k0 = _draw_index(rng, q0)
-        onset[s] = grid.onset_days[rows, k1 % M]
+        onset[s] = onsets[rows, k1 % M]
         j = np.where(z, k1 // M, k0)
-        start[s] = grid.shift_days[rows, j]
+        start[s] = starts[rows, j]
     flat["onset_group"] = mu
     flat["onset"] = onset
     if has_shift:

@@ -161,15 +161,18 @@ START_DAMPING = 0.02
 Not zero: nutpie needs a gradient without exact zeros at the start."""
 
 
-def _damp_start_jitter(compiled: Any, model: pm.Model) -> Any:
+def _damp_start_jitter(
+    compiled: Any, model: pm.Model, start: dict[str, np.ndarray] | None = None
+) -> Any:
     """Wrap nutpie's start-point function so only :data:`JITTERED` variables get full jitter.
 
     nutpie draws each chain's start as the prior centre plus U(−1, 1) on the
     unconstrained scale of every free variable (flattened in the order of
     ``model.free_RVs``); the others' jitter is scaled by
-    :data:`START_DAMPING`.
+    :data:`START_DAMPING`. ``start`` replaces the prior centre of the named
+    variables (unconstrained value names, e.g. points on the phase rings).
     """
-    point = model.initial_point()
+    point = {**model.initial_point(), **(start or {})}
     centre, damp = [], []
     for rv in model.free_RVs:
         name = model.rvs_to_values[rv].name
@@ -228,7 +231,7 @@ def sample(built: BuiltModel, settings: SamplerSettings | None = None) -> FitRes
                 compiled = nutpie.compile_pymc_model(
                     frozen, backend=backend, var_names=keep, freeze_model=False, **extra
                 )
-                compiled = _damp_start_jitter(compiled, frozen)
+                compiled = _damp_start_jitter(compiled, frozen, built.start)
                 timings["compile_s"] = time.perf_counter() - t0
                 t0 = time.perf_counter()
                 idata = nutpie.sample(
@@ -255,6 +258,7 @@ def sample(built: BuiltModel, settings: SamplerSettings | None = None) -> FitRes
                         progressbar=s.progress,
                         compute_convergence_checks=False,
                         nuts_sampler="pymc",
+                        initvals=built.start or None,
                         **kw,
                     )
                 timings["sample_s"] = time.perf_counter() - t0

@@ -215,8 +215,11 @@ def shift_grid(
     lo, hi = sampled_span(tb)
     spacing = float(knots[1] - knots[0])
     step = spacing if step is None else float(step)
-    starts = knots[0] + step * np.arange(int(np.floor((knots[-1] - knots[0]) / step)) + 1)
-    ok = (starts[None, :] + spacing > lo[:, None]) & (starts[None, :] < hi[:, None])
+    starts = knots[0] + step * np.arange(-1, int(np.floor((knots[-1] - knots[0]) / step)) + 2)
+    # one candidate more at each end (a ramp done before the samples, one starting after
+    # them): both leave no trace, so a phase offset (phase_offset) wrapping from one
+    # step to the next changes nothing
+    ok = (starts[None, :] + spacing > lo[:, None] - step) & (starts[None, :] < hi[:, None] + step)
     ok[~ok.any(axis=1), 0] = True
     n = ok.sum(axis=1)
     J = int(n.max())
@@ -224,6 +227,26 @@ def shift_grid(
     order = np.argsort(~ok, axis=1, kind="stable")[:, :J]  # the candidates, in time order
     out = np.where(mask, starts[order], starts[order][:, :1])
     return out, mask
+
+
+RING_SD = 0.25
+"""Radial SD of the phase variables around the unit circle (:func:`phase_offset`)."""
+
+
+def phase_offset(xy: Any, step: float, xp: ModuleType = np) -> Any:
+    """Offset in ``[0, step)`` days from a point ``(..., 2)`` on the plane, by its angle.
+
+    The candidate onsets and shift starts sit on grids of spacing ``step``;
+    each individual's candidates move together by a continuous offset, so
+    that grid index (summed exactly) and offset (sampled) together give a
+    continuous time with a uniform prior within each grid cell. The offset
+    is the angle of ``xy`` (prior: rotation-invariant, so the angle is
+    uniform): it wraps from one cell to the next without a boundary, and
+    one sharp optimum in time is one optimum in angle. (A grid alone made
+    the likelihood of a keratin-only animal's growth rate rugged, with one
+    bump each time an optimum crossed a grid point.)
+    """
+    return step * (xp.arctan2(xy[..., 1], xy[..., 0]) / (2.0 * np.pi) + 0.5)
 
 
 def shift_log_prior(grid: Grid, enabled: bool = True) -> np.ndarray:
