@@ -156,6 +156,9 @@ def fit_tables(
     from nstress.model.fit import SamplerSettings, sample
     from nstress.prep import prepare
     from nstress.prep.timebase import build_timebase
+    from nstress.products.exports import run_summary, tidy_timelines
+    from nstress.products.predictions import observation_predictions
+    from nstress.products.report import write_report
     from nstress.products.screening import ScreeningRules, colony_summary, screening_table
     from nstress.products.timelines import compute_products
     from nstress.tissues import resolve_tissues
@@ -170,7 +173,7 @@ def fit_tables(
     # ---- everything that can fail on the user's input, before any write ----
     tissues = resolve_tissues(cfg.tissues)
     settings = SamplerSettings(**{**cfg.sampler, "progress": cfg.progress, "cores": cfg.cores})
-    rules = ScreeningRules(**cfg.screening)
+    rules = ScreeningRules.from_config(cfg.screening)
     thresholds = Thresholds(**cfg.diagnostics)
     say(f"reading {len(tables)} table(s)")
     intake = read_samples([str(t) for t in tables], tissues=tissues)
@@ -209,6 +212,7 @@ def fit_tables(
     )
     screen = screening_table(prods.episodes, tb, diag, rules)
     summary = colony_summary(screen, draws.episode, tb.groups, tb.group_index)
+    preds = observation_predictions(built, draws, seed=seed)
     timings["products_s"] = time.perf_counter() - t0
     prods.dataset.attrs.update(
         {"diagnostics_ok": int(diag.ok), "nstress_version": __version__, "input_hash": digest}
@@ -230,6 +234,15 @@ def fit_tables(
         out / "colony_summary.csv", lambda p: summary.to_csv(p, index=False, float_format="%.5g")
     )
     atomic_write(out / "timelines.nc", lambda p: prods.dataset.to_netcdf(p, engine="h5netcdf"))
+    atomic_write(
+        out / "predictions.csv", lambda p: preds.to_csv(p, index=False, float_format="%.5g")
+    )
+    atomic_write(
+        out / "timelines_long.csv",
+        lambda p: tidy_timelines(tl).to_csv(p, index=False, float_format="%.5g"),
+    )
+    run_sum = run_summary(screen, diag.to_dict(), seed=seed, input_hash=digest, versions=versions())
+    atomic_write_text(out / "summary.json", json.dumps(run_sum, indent=2))
     attrs = {
         "config": result_cfg,
         "version": __version__,
@@ -260,6 +273,11 @@ def fit_tables(
         "prep_report": prepared.report,
         "files": sorted(p.name for p in out.iterdir() if not p.name.startswith(".")),
     }
+    atomic_write_text(out / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
+    # the report is rendered from the finished directory's files (re-renderable later)
+    say("writing report.html")
+    write_report([out], out)
+    manifest["files"] = sorted(p.name for p in out.iterdir() if not p.name.startswith("."))
     atomic_write_text(out / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
     say(f"wrote {out} ({'diagnostics passed' if diag.ok else 'DIAGNOSTICS FAILED'})")
     return manifest
