@@ -596,38 +596,31 @@ def anchored_walk_matrix(n_knots: int, anchor: np.ndarray) -> np.ndarray:
     return after.astype(float) - before.astype(float)
 
 
-def diet_path(
-    baseline: Array, steps: Array, walk: np.ndarray, basis: np.ndarray, xp: ModuleType = np
-) -> tuple[Array, Array]:
-    """Diet signal: a level plus a Gaussian random walk on coarse knots.
+def walk_values(baseline: Array, steps: Array, walk: np.ndarray, xp: ModuleType = np) -> Array:
+    """Diet signal at the knots: a level plus a Gaussian random walk, V = b + A·z.
 
-    V = b + A·z at the knots (:func:`anchored_walk_matrix`), and
-    D(t) = Σ_k B[t, k]·V_k on the bins, B the hat basis (:func:`knot_basis`).
+    Between knots the diet is piecewise linear (:func:`interpolate_knots`,
+    the same as the hat basis :func:`knot_basis`).
 
     Parameters
     ----------
     baseline
-        ``(I, 2)`` level b at the anchor knot (‰).
+        ``(..., I, 2)`` level b at the anchor knot (‰).
     steps
-        ``(I, K − 1, 2)`` increments z between consecutive knots (‰).
+        ``(..., I, K − 1, 2)`` increments z between consecutive knots (‰).
     walk
-        ``(I, K, K − 1)`` matrices A.
-    basis
-        ``(T, K)`` hat basis B at the bin centres.
+        ``(I, K, K − 1)`` matrices A (:func:`anchored_walk_matrix`).
     xp
         Array namespace.
 
     Returns
     -------
-    tuple
-        Knot values ``(I, K, 2)`` and the path on the bins ``(I, T, 2)``.
+    array
+        Knot values ``(..., I, K, 2)``.
     """
     if xp is np:
-        values = baseline[:, None, :] + np.einsum("ikj,ijc->ikc", walk, steps)
-        return values, np.einsum("tk,ikc->itc", basis, values)
-    values = baseline[:, None, :] + (walk[..., None] * steps[:, None, :, :]).sum(axis=2)
-    path = xp.tensordot(values, basis, axes=[[1], [1]]).dimshuffle(0, 2, 1)
-    return values, path
+        return baseline[..., None, :] + np.einsum("ikj,...ijc->...ikc", walk, steps)
+    return baseline[:, None, :] + (walk[..., None] * steps[:, None, :, :]).sum(axis=2)
 
 
 def walk_basis(t: np.ndarray, knots: np.ndarray) -> np.ndarray:

@@ -40,6 +40,26 @@ def _knot_values(p: Params, grid) -> np.ndarray:
     return p.baseline[:, None, :] + walk - at_anchor
 
 
+def _clock(tb, growth):
+    """Pivot p and rate r of each animal's diet clock w = p + r (t - p), from the table itself.
+
+    p is the collection time (noon) of the animal's latest-collected keratin and r that
+    keratin's growth multiplier; animals without keratin run on time itself (r = 1).
+    """
+    n = tb.n_individuals
+    pivot, rate = np.zeros(n), np.ones(n)
+    ker = tb.samples[tb.samples["tissue"].map(lambda t: tb.tissue_defs[t].is_keratin)]
+    for i, ind in enumerate(tb.individuals):
+        rows = ker[ker["individual"] == ind]
+        if not len(rows):
+            continue
+        last = rows.iloc[np.argmax(pd.to_datetime(rows["collected"]).to_numpy())]
+        day = (np.datetime64(pd.Timestamp(last["collected"]).date(), "D") - EPOCH).astype(float)
+        pivot[i] = day + 0.5 - (tb.origin[i] - EPOCH).astype(float)
+        rate[i] = growth[i, tb.keratin_tissues.index(last["tissue"])]
+    return pivot, rate
+
+
 def _windows(tb, growth):
     """Growth window of every keratin segment from the sample table itself.
 
@@ -62,7 +82,7 @@ def _windows(tb, growth):
     return ii, start, end
 
 
-def _midpoint_bound(ii, start, end, n, p: Params, grid):
+def _midpoint_bound(ii, start, end, n, p: Params, grid, clock=None):
     """Error bound of the n-point midpoint rule for the window mean of D and of E.
 
     Midpoint rule on a sub-interval of width h (e.g. Burden & Faires, Numerical Analysis,
@@ -70,18 +90,23 @@ def _midpoint_bound(ii, start, end, n, p: Params, grid):
     kink (the worst case is a kink at the sub-interval's midpoint). D is piecewise linear
     with kinks at the knots (slope jumps by the change of step / spacing, and to 0 outside
     the knots); E has kinks of size kappa at onset and end of the episode and |E''| <=
-    kappa/tau elsewhere. Divided by the window length L for the mean.
+    kappa/tau elsewhere. Divided by the window length L for the mean. D's bound is taken on
+    the diet clock (``clock`` = (p, r) of each segment), where D is piecewise linear on the
+    knots; the mean over a window does not change under the clock's linear map.
     """
     L = end - start
     h = L / n
+    p_, r_ = clock if clock is not None else (np.zeros_like(start), np.ones_like(start))
+    ws, we = p_ + r_ * (start - p_), p_ + r_ * (end - p_)
+    hw = (we - ws) / n
     s = grid.spacing
     slopes = np.concatenate(
         [np.zeros_like(p.steps[:, :1]), p.steps / s, np.zeros_like(p.steps[:, :1])], axis=1
     )  # (I, K + 1, 2): slope left of knot 0, between knots, right of the last knot
     jump = np.abs(np.diff(slopes, axis=1))  # (I, K, 2) at each knot
-    inside = (grid.knots[None, :] >= start[:, None]) & (grid.knots[None, :] <= end[:, None])
+    inside = (grid.knots[None, :] >= ws[:, None]) & (grid.knots[None, :] <= we[:, None])
     kink_d = (jump[ii] * inside[..., None]).sum(axis=1)  # (n_seg, 2)
-    bound_d = kink_d * (h**2 / (8 * L))[:, None]
+    bound_d = kink_d * (hw**2 / (8 * (we - ws)))[:, None]
     kappa, tau = p.kappa[ii], p.tau_rec[ii]
     edges = np.stack([p.onset[ii], p.onset[ii] + p.duration[ii]], axis=1)
     n_kinks = ((edges >= start[:, None]) & (edges <= end[:, None])).sum(axis=1)
@@ -104,9 +129,11 @@ def test_keratin_is_window_mean_of_pool(sim, growth_scale, n_points):
     f = (np.arange(N_FINE) + 0.5) / N_FINE
     tt = start[:, None] + (end - start)[:, None] * f  # (n_seg, N_FINE)
     kv = _knot_values(p, grid)
+    pivot, rate = _clock(tb, p.growth)
+    ww = pivot[ii, None] + rate[ii, None] * (tt - pivot[ii, None])  # the diet clock
     diet = np.stack(
         [
-            np.stack([np.interp(tt[j], grid.knots, kv[i, :, c]) for j, i in enumerate(ii)])
+            np.stack([np.interp(ww[j], grid.knots, kv[i, :, c]) for j, i in enumerate(ii)])
             for c in range(2)
         ],
         axis=-1,
@@ -117,8 +144,9 @@ def test_keratin_is_window_mean_of_pool(sim, growth_scale, n_points):
 
     # tolerance: the midpoint-rule bound for the model's n points plus that of the
     # brute force's 2,000 points, plus rounding
-    bd, be = _midpoint_bound(ii, start, end, n_points, p, grid)
-    bd_f, be_f = _midpoint_bound(ii, start, end, N_FINE, p, grid)
+    seg_clock = (pivot[ii], rate[ii])
+    bd, be = _midpoint_bound(ii, start, end, n_points, p, grid, seg_clock)
+    bd_f, be_f = _midpoint_bound(ii, start, end, N_FINE, p, grid, seg_clock)
     k = tb.keratin
     disc = p.disc[k.tissue[k.mask]]
     err_d = np.abs(pred.keratin0[k.mask] - disc - diet)
@@ -144,21 +172,39 @@ def test_keratin_is_window_mean_of_pool(sim, growth_scale, n_points):
 
 def test_keratin_windows_follow_growth(sim):
     # r scales growth: a faster whisker (r = 2) records each segment twice as close to the
-    # collection date. With a pool that is linear in time (constant walk steps, no episode)
-    # the window mean is the pool at the window centre, exactly for the midpoint rule.
+    # collection date, on absolute time. The diet runs on the animal's clock
+    # w = p + r (t - p) pivoted at that collection date, so the diet record of the whisker
+    # does not move with r while the episode (absolute time) and the blood draws do.
     s, tb, grid = sim
     p0 = s.params
+    k, b = tb.keratin, tb.blood
+    preds = {}
+    for r in (1.0, 2.0):
+        p = dataclasses.replace(p0, growth=np.full_like(p0.growth, r))
+        preds[r] = predict(tb, grid, p)
+    np.testing.assert_allclose(preds[1.0].keratin0[k.mask], preds[2.0].keratin0[k.mask], atol=1e-12)
+    np.testing.assert_allclose(
+        preds[1.0].keratin_s[k.mask], preds[2.0].keratin_s[k.mask], atol=1e-12
+    )
+    fasting = (p0.kappa > 0)[:, None] & k.mask
+    moved_e = np.abs(preds[1.0].keratin_e - preds[2.0].keratin_e)[fasting]
+    assert moved_e.max() > 0.05
+    moved_b = np.abs(preds[1.0].blood0 - preds[2.0].blood0)[b.mask]
+    assert moved_b.max() > 0.05
+    # on absolute time: with constant walk steps (a diet linear on the clock) and no episode,
+    # the window mean is the diet at the window's centre, exactly for the midpoint rule
     steps = np.full_like(p0.steps, 0.05)
-    k = tb.keratin
+    pivot, _ = _clock(tb, p0.growth)
     for r in (1.0, 2.0):
         p = dataclasses.replace(
             p0, steps=steps, kappa=np.zeros_like(p0.kappa), growth=np.full_like(p0.growth, r)
         )
         y = predict(tb, grid, p).keratin0 - p.disc[k.tissue]
-        age = k.t - 0.5 * (k.h_lo + k.h_hi) / r  # window centre
+        age = k.t - 0.5 * (k.h_lo + k.h_hi) / r  # window centre, absolute time
+        w = pivot[:, None] + r * (age - pivot[:, None])
         anchor_t = grid.knots[grid.anchor][:, None, None]
-        expected = p.baseline[:, None, :] + 0.05 * (age[..., None] - anchor_t) / grid.spacing
-        inside = k.mask & (k.t - k.h_hi / r >= 0)
+        expected = p.baseline[:, None, :] + 0.05 * (w[..., None] - anchor_t) / grid.spacing
+        inside = k.mask & (k.t - k.h_hi / r >= 0) & (w - 0.5 * (k.h_hi - k.h_lo) >= 0)
         np.testing.assert_allclose(y[inside], expected[inside], atol=1e-10)
 
 
@@ -170,16 +216,18 @@ def test_blood_prediction_equals_reference_weights(sim):
     pred = predict(tb, grid, p)
     # latent paths on the bins: D by numpy interpolation of the knot values, E closed form
     kv = _knot_values(p, grid)
+    pivot, rate = _clock(tb, p.growth)
+    w = pivot[:, None] + rate[:, None] * (tb.bin_mid[None, :] - pivot[:, None])  # diet clock
     diet = np.stack(
         [
-            np.stack([np.interp(tb.bin_mid, grid.knots, kv[i, :, c]) for i in range(len(kv))])
-            for c in range(2)
+            np.stack([np.interp(w[i], grid.knots, kv[i, :, c]) for i in range(len(kv))])
+            for c in (0, 1)
         ],
         axis=-1,
     )
-    # the diet path adds the explicit shift, a ramp over one knot interval that is 0 at the
-    # walk's anchor knot
-    ramp = np.clip((tb.bin_mid[None, :] - p.shift_start[:, None]) / grid.spacing, 0, 1)
+    # the diet path adds the explicit shift, a ramp over one knot interval of the clock that
+    # is 0 at the walk's anchor knot
+    ramp = np.clip((w - p.shift_start[:, None]) / grid.spacing, 0, 1)
     ramp_a = np.clip((grid.knots[grid.anchor] - p.shift_start) / grid.spacing, 0, 1)
     shift = (ramp - ramp_a[:, None])[..., None] * p.shift_size[:, None, :]
     assert np.abs(shift).max() > 0.5  # the colony has shifters
@@ -359,7 +407,13 @@ def test_pytensor_gradient_matches_finite_differences(sim):
     n_rate = numeric("rate", p.rate, 1e-7)
     np.testing.assert_allclose(g_growth, n_growth, rtol=1e-5, atol=1e-6)
     np.testing.assert_allclose(g_rate, n_rate, rtol=1e-5, atol=1e-6)
-    assert np.abs(g_growth).min() > 1e-3  # every animal's windows move with its growth
+    # growth moves what runs on absolute time: the episode in keratin and the diet the blood
+    # reads; a keratin-only animal without an episode has a diet record independent of its
+    # growth (the diet clock, forward.diet_clock)
+    told = (p.kappa > 0) | tb.blood.mask.any(axis=1)
+    assert told.any() and (~told).any()
+    assert np.abs(g_growth[told]).min() > 1e-3
+    np.testing.assert_allclose(g_growth[~told], 0.0, atol=1e-9)
     ker = [j for j, c in enumerate(tb.tissue_class) if c == "keratin"]
     assert np.all(g_rate[ker] == 0) and np.all(np.abs(np.delete(g_rate, ker)) > 1e-3)
 

@@ -112,9 +112,8 @@ def test_diet_path_matches_kalman_smoother():
     with model:
         mp = pm.find_MAP(progressbar=False, maxeval=20000)
     grid = built.grid
-    knots, diet = eq.diet_path(
-        np.asarray(mp["diet_level"]), np.asarray(mp["diet_steps"]), grid.walk, grid.basis
-    )
+    knots = eq.walk_values(np.asarray(mp["diet_level"]), np.asarray(mp["diet_steps"]), grid.walk)
+    diet = eq.interpolate_knots(tb.bin_mid[None, :], grid.spacing, knots, len(grid.knots))
 
     # the smoother's own view: one time index per knot interval
     t_obs = tb.blood.t[0][tb.blood.mask[0]]

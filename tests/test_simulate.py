@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import re
 import time
 
@@ -22,6 +23,7 @@ from nstress.model.simulate import (
     write_simulation,
 )
 from nstress.prep.timebase import build_timebase
+from nstress.tissues import DEFAULT_TISSUES
 
 ISO = re.compile(r"^\d{4}-\d{2}-\d{2}$")
 
@@ -271,6 +273,11 @@ def test_step_diet_change_follows_incorporation_curve(bin_width):
         shift_window_days=(5.0, 30.0),
         bin_width=bin_width,
         knot_days=bin_width,
+        # whiskers at their nominal growth: the diet clock (forward.diet_clock) is time itself
+        tissues={
+            **DEFAULT_TISSUES,
+            "whisker": dataclasses.replace(DEFAULT_TISSUES["whisker"], growth_sd_log=0.0),
+        },
     )
     s = simulate_colony(spec)
     ti = s.truth_individuals.set_index("individual")

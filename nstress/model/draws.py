@@ -175,12 +175,18 @@ def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:
     """
     tb, grid = built.timebase, built.grid
     p = d.params
-    values = p["diet_level"][:, :, None, :] + np.einsum(
-        "ikj,sijc->sikc", grid.walk, p["diet_steps"]
-    )
-    diet = np.einsum("tk,sikc->sitc", grid.basis, values)
+    values = eq.walk_values(p["diet_level"], p["diet_steps"], grid.walk)  # (S, I, K, 2)
+    n_s, n_i = values.shape[:2]
+    rate = forward.clock_rate(grid, p["growth"])  # (S, I)
+    w = forward.diet_clock(grid, np.broadcast_to(tb.bin_mid, (n_s, n_i, tb.T)), rate)
+    diet = eq.interpolate_knots(
+        w.reshape(n_s * n_i, tb.T),
+        grid.spacing,
+        values.reshape((n_s * n_i,) + values.shape[2:]),
+        len(grid.knots),
+    ).reshape(n_s, n_i, tb.T, 2)
     if "shift" in p:
-        diet = diet + forward.shift_path(grid, tb.bin_mid, p["shift_start"], p["shift"])
+        diet = diet + forward.shift_path(grid, w, p["shift_start"], p["shift"])
     t = tb.bin_mid[None, None, :]
     on, du = p["onset"][..., None], p["duration"][..., None]
     enrich = eq.enrichment(t, on, du, p["kappa"][..., None], p["tau_rec"][..., None])

@@ -28,7 +28,7 @@ ONSET_LEAD_DAYS = 30.0
 
 @dataclass
 class Grid:
-    """Constant arrays of one time base: knots, walk basis, blood lags.
+    """Constant arrays of one time base: knots, walk matrices, blood lags, candidates, clock.
 
     Attributes
     ----------
@@ -36,8 +36,6 @@ class Grid:
         Knot times of the diet walk (days since origin), equally spaced.
     walk
         ``(I, K, K − 1)`` anchored walk matrices (:func:`nstress.equations.anchored_walk_matrix`).
-    basis
-        ``(T, K)`` hat basis of the knots at the bin centres.
     anchor
         ``(I,)`` knot at which each individual's walk is 0 (the median time of its samples).
     blood_bin
@@ -66,13 +64,19 @@ class Grid:
         (to the next knot) overlaps what the individual's samples see.
     shift_mask
         ``(I, J)`` which candidates are real (rows are padded to J).
+    warp_pivot
+        ``(I,)`` pivot p of each individual's diet clock (days since origin):
+        the collection time of its latest-collected keratin (see :func:`diet_clock`).
+    warp_slot
+        ``(I,)`` keratin slot whose growth multiplier r sets the clock's rate.
+    warp_on
+        ``(I,)`` which individuals have keratin (the others' clock is time itself).
     keratin_points
         Quadrature points per keratin growth window (diet path).
     """
 
     knots: np.ndarray
     walk: np.ndarray
-    basis: np.ndarray
     anchor: np.ndarray
     blood_bin: np.ndarray
     blood_phi: np.ndarray
@@ -85,6 +89,9 @@ class Grid:
     onset_ref: np.ndarray
     shift_days: np.ndarray
     shift_mask: np.ndarray
+    warp_pivot: np.ndarray
+    warp_slot: np.ndarray
+    warp_on: np.ndarray
     keratin_points: int = DEFAULT_KERATIN_POINTS
 
     @property
@@ -105,7 +112,7 @@ def make_grid(
     onset_step: float = DEFAULT_ONSET_STEP_DAYS,
     shift_step: float | None = None,
 ) -> Grid:
-    """Knots every ``knot_days`` across the padded grid, the walk basis, blood lags, onsets.
+    """Knots every ``knot_days`` across the padded grid, walk matrices, blood lags, candidates.
 
     Parameters
     ----------
@@ -131,10 +138,15 @@ def make_grid(
     slot[blood_tissues] = np.arange(len(blood_tissues))
     onsets, onset_mask = onset_grid(tb, onset_step)
     shifts, shift_mask = shift_grid(tb, knots, shift_step)
+    k = tb.keratin
+    latest = np.argmax(np.where(k.mask, k.t, -np.inf), axis=1) if k.n else np.zeros(0, int)
+    rows = np.arange(tb.n_individuals)
+    warp_on = k.mask.any(axis=1) if k.n else np.zeros(tb.n_individuals, bool)
+    pivot = np.where(warp_on, k.t[rows, latest], 0.0) if k.n else np.zeros(tb.n_individuals)
+    wslot = np.where(warp_on, k.slot[rows, latest], 0) if k.n else np.zeros(tb.n_individuals, int)
     return Grid(
         knots=knots,
         walk=eq.anchored_walk_matrix(n_knots, anchor),
-        basis=eq.knot_basis(tb.bin_mid, knots),
         anchor=anchor,
         blood_bin=b_bin,
         blood_phi=tb.blood.t - b_bin * tb.bin_width,
@@ -147,6 +159,9 @@ def make_grid(
         onset_ref=0.5 * np.add(*sampled_span(tb)),
         shift_days=shifts,
         shift_mask=shift_mask,
+        warp_pivot=pivot.astype(float),
+        warp_slot=wslot.astype(np.int64),
+        warp_on=warp_on,
         keratin_points=int(keratin_points),
     )
 
@@ -260,16 +275,56 @@ def shift_log_prior(grid: Grid, enabled: bool = True) -> np.ndarray:
     return np.where(grid.shift_mask, -np.log(n), -1e10)
 
 
-def shift_path(grid: Grid, t: np.ndarray, start: Any, size: Any, xp: ModuleType = np) -> Any:
-    """Return a diet shift on the times ``t`` ``(T,)``: size × (ramp(t) − ramp at the anchor).
+def clock_rate(grid: Grid, growth: Any, xp: ModuleType = np) -> Any:
+    """Rate r ``(..., I)`` of each individual's diet clock: its pivot keratin's growth multiplier.
 
-    ``start`` is ``(..., I)`` and ``size`` ``(..., I, 2)``; the result is
-    ``(..., I, T, 2)``, zero at each individual's anchor knot (as the walk
-    is). The ramp rises over one knot spacing (:func:`nstress.equations.ramp`).
+    ``growth`` is ``(..., I, K_keratin)``; individuals without keratin get 1.
     """
-    w = grid.spacing
-    at_anchor = eq.ramp(grid.knots[grid.anchor], start, w, xp=xp)  # (..., I)
-    r = eq.ramp(t, start[..., None], w, xp=xp) - at_anchor[..., None]
+    rows = np.arange(grid.warp_pivot.shape[0])
+    r = growth[..., rows, grid.warp_slot] if xp is np else growth[rows, grid.warp_slot]
+    return xp.where(grid.warp_on, r, 1.0)
+
+
+def diet_clock(grid: Grid, t: Any, rate: Any, xp: ModuleType = np) -> Any:
+    """Diet-clock time w = p + r·(t − p) of absolute times ``t`` ``(..., I, n...)``.
+
+    The diet (level, walk knots, shift) lives on this clock. A keratin
+    segment grown at multiplier r over [t_c − h_hi/r, t_c − h_lo/r]
+    (collection time t_c) maps to [t_c − h_hi, t_c − h_lo] when p = t_c:
+    the diet a whisker records does not move when its growth rate does, so
+    growth and diet are not traded against each other along a ridge (with
+    diet on absolute time, a faster growth moved every segment and the whole
+    walk and shift had to follow; chains settled at different growth rates).
+    Growth is then told by what runs on absolute time: the episode and the
+    blood draws. ``rate`` is ``(..., I)`` (:func:`clock_rate`).
+    """
+    extra = t.ndim - rate.ndim
+    idx = (Ellipsis,) + (None,) * extra
+    p = grid.warp_pivot[idx]
+    return p + rate[idx] * (t - p)
+
+
+def diet_on_times(grid: Grid, t: Any, values: Any, rate: Any, xp: ModuleType = np) -> Any:
+    """Return the walk's diet ``(I, n..., 2)`` at absolute times ``t`` ``(I, n...)`` (clock).
+
+    ``values`` are the knot values ``(I, K, 2)`` on the diet clock
+    (:func:`nstress.equations.walk_values`).
+    """
+    return eq.interpolate_knots(
+        diet_clock(grid, t, rate, xp=xp), grid.spacing, values, len(grid.knots), xp=xp
+    )
+
+
+def shift_path(grid: Grid, w: Any, start: Any, size: Any, xp: ModuleType = np) -> Any:
+    """Return a diet shift at clock times ``w`` ``(..., I, T)``: size × (ramp(w) − ramp at anchor).
+
+    ``start`` is ``(..., I)`` and ``size`` ``(..., I, 2)`` (both on the diet
+    clock, :func:`diet_clock`); the result is ``(..., I, T, 2)``, zero at each
+    individual's anchor knot (as the walk is). The ramp rises over one knot
+    spacing (:func:`nstress.equations.ramp`).
+    """
+    at_anchor = eq.ramp(grid.knots[grid.anchor], start, grid.spacing, xp=xp)  # (..., I)
+    r = eq.ramp(w, start[..., None], grid.spacing, xp=xp) - at_anchor[..., None]
     return r[..., None] * size[..., None, :]
 
 
@@ -312,8 +367,9 @@ class Params:
     shift_size
         ``(I, 2)`` size of one explicit diet shift (Δδ15N, Δδ13C, ‰), or ``None``.
     shift_start
-        ``(I,)`` start of the shift's ramp (days since origin; it reaches its
-        full size one knot spacing later), or ``(I, J)`` candidate starts.
+        ``(I,)`` start of the shift's ramp on the diet clock (:func:`diet_clock`;
+        it reaches its full size one knot spacing of the clock later), or
+        ``(I, J)`` candidate starts.
     """
 
     baseline: Any
@@ -359,7 +415,8 @@ class Prediction:
 def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Prediction:
     """Return the expected values of every observation given the parameters.
 
-    * Diet D(t): level + knot random walk, piecewise linear in time.
+    * Diet D(w(t)): level + knot random walk + shift, piecewise linear on the
+      individual's diet clock w (:func:`diet_clock`).
     * Enrichment E(t): closed form (:func:`nstress.equations.enrichment`).
     * Blood: the diet through one-compartment weights on the bins
       (:func:`nstress.equations.blood_from_filtered`); the enrichment through
@@ -389,7 +446,10 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
     Prediction
     """
     n_ind = tb.n_individuals
-    knot_values, diet = eq.diet_path(p.baseline, p.steps, grid.walk, grid.basis, xp=xp)
+    knot_values = eq.walk_values(p.baseline, p.steps, grid.walk, xp=xp)
+    clock = clock_rate(grid, p.growth, xp=xp)  # (I,)
+    bins_abs = np.broadcast_to(tb.bin_mid, (n_ind, tb.T))
+    diet = diet_on_times(grid, bins_abs, knot_values, clock, xp=xp)  # (I, T, 2)
     single = p.onset.ndim == 1
     on = (p.onset[:, None] if single else p.onset)[:, None, :]  # (I, 1, M)
     duration = p.duration[:, None, None]
@@ -451,31 +511,45 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
     r = p.growth[np.arange(n_ind)[:, None], k.slot]
     t_lo, t_hi = k.t - k.h_hi / r, k.t - k.h_lo / r
     tq = eq.window_points(t_lo, t_hi, grid.keratin_points)
-    diet_k = eq.interpolate_knots(tq, grid.spacing, knot_values, len(grid.knots), xp=xp).mean(
-        axis=2
-    )
+    diet_k = diet_on_times(grid, tq, knot_values, clock, xp=xp).mean(axis=2)
     keratin_e = eq.enrichment_window_mean(
         t_lo[..., None], t_hi[..., None], on, duration, kappa, tau, ref=ref, xp=xp
     )
     if single:
         blood_e, keratin_e = blood_e[..., 0], keratin_e[..., 0]
 
-    # diet shift: a ramp over one knot spacing, anchored (0 at the anchor knot)
+    # diet shift: a ramp over one knot spacing of the diet clock, anchored (0 at the
+    # anchor knot); on absolute time it starts at p + (st − p)/r and lasts W/r
     blood_s = keratin_s = None
     if p.shift_start is not None:
         one_shift = p.shift_start.ndim == 1
         st = (p.shift_start[:, None] if one_shift else p.shift_start)[:, None, :]  # (I, 1, J)
         w = grid.spacing
         at_anchor = eq.ramp(grid.knots[grid.anchor][:, None, None], st, w, xp=xp)
+        r3, p3 = clock[:, None, None], grid.warp_pivot[:, None, None]
         blood_s = (
-            eq.ramp_incorporated(b.t[..., None], st, w, p.rate[b.tissue][..., None], ref=ref, xp=xp)
+            eq.ramp_incorporated(
+                b.t[..., None],
+                p3 + (st - p3) / r3,
+                w / r3,
+                p.rate[b.tissue][..., None],
+                ref=ref,
+                xp=xp,
+            )
             - at_anchor
         )
-        keratin_s = eq.ramp_window_mean(t_lo[..., None], t_hi[..., None], st, w, xp=xp) - at_anchor
+        w_lo, w_hi = diet_clock(grid, t_lo, clock, xp=xp), diet_clock(grid, t_hi, clock, xp=xp)
+        keratin_s = eq.ramp_window_mean(w_lo[..., None], w_hi[..., None], st, w, xp=xp) - at_anchor
         if one_shift:
             blood_s, keratin_s = blood_s[..., 0], keratin_s[..., 0]
             if p.shift_size is not None:
-                diet = diet + shift_path(grid, tb.bin_mid, p.shift_start, p.shift_size, xp=xp)
+                diet = diet + shift_path(
+                    grid,
+                    diet_clock(grid, bins_abs, clock, xp=xp),
+                    p.shift_start,
+                    p.shift_size,
+                    xp=xp,
+                )
     return Prediction(
         diet=diet,
         enrich=enrich,

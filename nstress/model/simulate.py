@@ -48,6 +48,8 @@ from nstress.model.forward import (
     Grid,
     Params,
     Prediction,
+    clock_rate,
+    diet_clock,
     expected,
     make_grid,
     predict,
@@ -652,10 +654,12 @@ def simulate_colony(spec: ColonySpec | None = None) -> Simulation:
     hi = np.where(bad, np.maximum(collect - margin, rec_start + margin + 1e-6), hi)
     when = rng.uniform(0.0, 1.0, I) * (hi - lo) + lo
     step_at = np.clip(np.searchsorted(grid.knots, when, side="right") - 1, 0, K - 1)
-    shift_t = 0.5 * (grid.knots[step_at] + grid.knots[step_at + 1])
+    # middle of the ramp on absolute time (it lasts one knot spacing of the clock, W/r)
+    shift_t = grid.knots[step_at] + 0.5 * margin / clock_rate(grid, growth)
     # the shift is the model's explicit shift term: a ramp over one knot interval
     shift_size = np.stack([shift_dn, shift_dc], axis=-1)
-    shift_start = grid.knots[step_at].astype(float)
+    # the model's shift start is on the diet clock (forward.diet_clock)
+    shift_start = diet_clock(grid, grid.knots[step_at].astype(float), clock_rate(grid, growth))
     # tissues
     tdef = [reg[t] for t in tb.tissues]
     disc = np.array([[t.disc_d15N, t.disc_d13C] for t in tdef])
