@@ -708,7 +708,7 @@ def simulate_colony(spec: ColonySpec | None = None) -> Simulation:
         shift_t,
         shift_dn,
         shift_dc,
-        margin,
+        margin / clock_rate(grid, growth),  # the ramp's length on absolute time
     )
     truth_bins = _truth_bins(tb, pred, has_ep, onset, duration)
     return Simulation(spec, table, truth_ind, truth_bins, params, tb, grid, pred)
@@ -782,7 +782,7 @@ def _truth_individuals(
             "has_shift": has_shift,
             "shift_type": shift_type,
             "shift_date": _iso(np.where(has_shift, origin + shift_t, nan)),
-            "shift_ramp_days": np.where(has_shift, round(ramp, 3), nan),
+            "shift_ramp_days": np.where(has_shift, np.round(ramp, 3), nan),
             "shift_d15N": np.round(shift_dn, r),
             "shift_d13C": np.round(shift_dc, r),
             "peak_enrichment_d15N": np.round(peak, r),
