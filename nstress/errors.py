@@ -112,6 +112,7 @@ class ConfigError(NstressError):
     def __init__(self, message: str, *, key: str | None = None, file: str | None = None) -> None:
         self.key = key
         self.file = file
+        self.detail = message
         where = []
         if file is not None:
             where.append(f"file {file}")

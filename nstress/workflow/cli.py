@@ -81,7 +81,8 @@ def build_parser() -> argparse.ArgumentParser:
         prog="nstress",
         description="Detect and date catabolic (nutritional-stress) episodes from serial "
         "δ15N/δ13C of keratin segments and blood.",
-        epilog="Run 'nstress COMMAND --help' for the options of a command.",
+        epilog="Run 'nstress COMMAND --help' for the options of a command.\n\n" + EXIT_CODES,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     parser.add_argument("--version", action="version", version=f"nstress {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
@@ -392,19 +393,41 @@ diagnostics (products are still written, marked); 2: bad input.
 """
 
 
-def _model_arguments(p: argparse.ArgumentParser) -> None:
-    """Sampler, grid and verbosity options shared by ``fit`` and ``demo``."""
-    p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
-    p.add_argument("--draws", type=int, default=1000, help="kept draws per chain (default 1000)")
-    p.add_argument("--tune", type=int, default=1000, help="warm-up draws per chain (default 1000)")
-    p.add_argument("--chains", type=int, default=2, help="chains (default 2)")
+def _model_arguments(p: argparse.ArgumentParser, from_workflow: bool = False) -> None:
+    """Sampler, grid and verbosity options shared by ``fit`` and ``demo``.
+
+    With ``from_workflow`` the defaults are the workflow file's (an option
+    given on the command line overrides the file).
+    """
+
+    def default(value: Any) -> Any:
+        return None if from_workflow else value
+
+    def said(text: str, value: Any) -> str:
+        return f"{text} (default: {'the workflow' + chr(39) + 's' if from_workflow else value})"
+
+    p.add_argument("--seed", type=int, default=default(1), help=said("random seed", 1))
+    p.add_argument(
+        "--draws", type=int, default=default(1000), help=said("kept draws per chain", 1000)
+    )
+    p.add_argument(
+        "--tune", type=int, default=default(1000), help=said("warm-up draws per chain", 1000)
+    )
+    p.add_argument("--chains", type=int, default=default(2), help=said("chains", 2))
     p.add_argument(
         "--sampler",
         choices=["auto", "nutpie", "pymc"],
-        default="auto",
-        help="NUTS implementation (default: nutpie when installed)",
+        default=default("auto"),
+        help=said("NUTS implementation", "nutpie when installed"),
     )
-    p.add_argument("--bin-days", type=float, default=4.0, help="grid bin width in days")
+    p.add_argument(
+        "--bin-days", type=float, default=default(4.0), help=said("grid bin width in days", 4.0)
+    )
+    _verbosity(p)
+
+
+def _verbosity(p: argparse.ArgumentParser) -> None:
+    """``--quiet`` / ``--verbose``."""
     g = p.add_mutually_exclusive_group()
     g.add_argument("--quiet", action="store_true", help="print nothing but errors")
     g.add_argument("--verbose", action="store_true", help="more detail")
@@ -454,16 +477,132 @@ register(
 )
 
 
+# ---------------------------------------------------------------- run
+
+EXIT_CODES = """\
+exit codes:
+  0  success (every unit fitted and passed its diagnostics)
+  1  a fit or unit failed, or failed its diagnostics (the others are written)
+  2  bad input or configuration (nothing is fitted)
+"""
+
+_RUN_EPILOG = (
+    """\
+examples:
+  nstress run workflows/two_colonies.toml
+  nstress run season.toml --out runs/2025/             # another run directory
+  nstress run season.toml --force                      # refit finished units too
+  nstress run season.toml --local-cluster 2            # units on a Dask LocalCluster
+  nstress run season.toml --scheduler tcp://10.0.0.5:8786
+
+Fits each unit (one per group, or per table: [units] split) into
+RUN_DIR/units/<unit>/, then writes RUN_DIR/ledger.csv, screening.csv,
+timelines.csv (merged, with a unit column), report.html and manifest.json
+(last). A rerun skips the units whose inputs and result settings are
+unchanged. Dask workers must see the same file system as this command.
+The workflow file's schema: DEVELOPERS.md, "Workflow files".
+
+"""
+    + EXIT_CODES
+)
+
+
+def _run_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("workflow", metavar="WORKFLOW", type=Path, help="workflow file (.toml)")
+    p.add_argument("--out", metavar="DIR", type=Path, help="run directory (overrides the file's)")
+    _execution_arguments(p)
+    _verbosity(p)
+
+
+def _execution_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--force", action="store_true", help="refit units that are finished")
+    where = p.add_mutually_exclusive_group()
+    where.add_argument(
+        "--scheduler", metavar="ADDRESS", help="fit the units on this Dask scheduler"
+    )
+    where.add_argument(
+        "--local-cluster",
+        metavar="N",
+        type=int,
+        help="start a Dask LocalCluster of N workers for the units",
+    )
+    where.add_argument(
+        "--workers",
+        metavar="N",
+        type=int,
+        help="local worker processes (0: in this process; default: cores / chains)",
+    )
+
+
+def _run_run(args: argparse.Namespace) -> int:
+    from nstress.workflow.config import load_workflow
+
+    return _execute(load_workflow(args.workflow), args, args.out)
+
+
+def _execute(wf: Any, args: argparse.Namespace, out: Path | None) -> int:
+    """Run a loaded workflow with the command line's execution options."""
+    from nstress.workflow.run import run_workflow
+
+    for name in ("local_cluster", "workers"):
+        value = getattr(args, name, None)
+        if value is not None and value < (1 if name == "local_cluster" else 0):
+            raise NstressError(f"--{name.replace('_', '-')} must be at least 1")
+    outcome = run_workflow(
+        wf,
+        out=out,
+        force=args.force,
+        scheduler=args.scheduler,
+        local_cluster=args.local_cluster,
+        workers=args.workers,
+        quiet=args.quiet,
+        verbose=args.verbose,
+    )
+    m = outcome.manifest
+    progress = Progress(args.quiet, args.verbose)
+    states = [u.get("status", "?") for u in m["units"]]
+    progress(
+        f"wrote {outcome.run_dir}: "
+        + ", ".join(f"{states.count(s)} {s}" for s in dict.fromkeys(states))
+    )
+    if m["failed_units"]:
+        print(
+            "nstress: error: unit(s) failed: " + ", ".join(m["failed_units"]) + " (see "
+            "units/<unit>/unit.log)",
+            file=sys.stderr,
+        )
+    if m["diagnostics_failed_units"]:
+        progress("diagnostics failed in unit(s): " + ", ".join(m["diagnostics_failed_units"]))
+    return outcome.exit_code
+
+
+register(
+    Command(
+        name="run",
+        help="run a workflow file: fit each unit, merge, report",
+        add_arguments=_run_arguments,
+        run=_run_run,
+        description="Run a reproducible workflow (TOML): inputs, settings, outputs, execution.",
+        epilog=_RUN_EPILOG,
+    )
+)
+
+
 # ---------------------------------------------------------------- demo
 
-_DEMO_EPILOG = """\
+_DEMO_EPILOG = (
+    """\
 examples:
   nstress demo --out demo_run/
   nstress demo --out demo_run/ --draws 300 --tune 300     # quicker, may fail diagnostics
 
-Fits the invented (synthetic) demo colony shipped in demo_data/ and writes the
-same files as `nstress fit`.
+Runs the demo workflow workflows/demo.toml on the invented (synthetic) demo
+colony in demo_data/ and writes a run directory (see `nstress run --help`).
+Options given here override the workflow file's settings.
+
 """
+    + EXIT_CODES
+)
 
 
 def demo_table() -> Path:
@@ -474,29 +613,150 @@ def demo_table() -> Path:
     return here
 
 
+def demo_workflow() -> Path:
+    """Path of the demo workflow file (``workflows/demo.toml``)."""
+    here = Path(__file__).resolve().parents[2] / "workflows" / "demo.toml"
+    if not here.exists():
+        raise NstressError(f"demo workflow not found at {here}; run from a source checkout")
+    return here
+
+
 def _demo_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--out",
         metavar="DIR",
         type=Path,
         default=Path("demo_run"),
-        help="output directory (default demo_run/)",
+        help="run directory (default demo_run/)",
     )
-    _model_arguments(p)
+    _model_arguments(p, from_workflow=True)
+    _execution_arguments(p)
 
 
 def _run_demo(args: argparse.Namespace) -> int:
-    args.tables = [demo_table()]
-    return _run_fit(args)
+    from nstress.workflow.config import load_workflow
+
+    keys = ("draws", "tune", "chains", "seed", "sampler")
+    sampler = {k: getattr(args, k) for k in keys if getattr(args, k) is not None}
+    grid = {"bin_days": args.bin_days} if args.bin_days is not None else {}
+    wf = load_workflow(demo_workflow(), overrides={"sampler": sampler, "grid": grid})
+    return _execute(wf, args, args.out)
 
 
 register(
     Command(
         name="demo",
-        help="run the whole pipeline on the invented demo colony",
+        help="run the demo workflow on the invented demo colony",
         add_arguments=_demo_arguments,
         run=_run_demo,
-        description="Fit the synthetic demo colony (demo_data/) with default settings.",
+        description="Run workflows/demo.toml on the synthetic demo colony (demo_data/).",
         epilog=_DEMO_EPILOG,
+    )
+)
+
+
+# ---------------------------------------------------------------- init
+
+_INIT_EPILOG = (
+    """\
+examples:
+  nstress init colony.csv -o season.toml
+  nstress init whiskers.csv plasma.csv -o study/workflow.toml --force
+
+Reads and checks the table(s), then writes a commented workflow file that
+names them (relative to the file) and lists the groups found; edit it and
+run it with `nstress run`. An existing file is kept unless --force.
+
+"""
+    + EXIT_CODES
+)
+
+
+def _init_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("tables", nargs="+", metavar="TABLE", help="sample table(s)")
+    p.add_argument(
+        "-o",
+        "--output",
+        metavar="WORKFLOW",
+        type=Path,
+        default=Path("workflow.toml"),
+        help="workflow file to write (default workflow.toml)",
+    )
+    p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    _verbosity(p)
+
+
+def _run_init(args: argparse.Namespace) -> int:
+    from nstress.atomic import atomic_write_text
+    from nstress.intake import read_samples
+    from nstress.workflow.config import load_workflow, starter_workflow
+
+    progress = Progress(args.quiet, args.verbose)
+    dest = Path(args.output)
+    if dest.exists() and not args.force:
+        raise NstressError(f"{dest} exists; give --force to overwrite it")
+    intake = read_samples([str(t) for t in args.tables])
+    s = intake.samples
+    groups = sorted(map(str, s["group"].unique())) if len(s) else []
+    tissues = sorted(map(str, s["tissue"].unique())) if len(s) else []
+    text = starter_workflow(
+        [Path(t) for t in args.tables], dest, groups, tissues, len(intake.ledger)
+    )
+    atomic_write_text(dest, text)
+    load_workflow(dest)  # what was written must be a valid workflow
+    progress(f"wrote {dest} ({len(groups)} group(s): {', '.join(groups)})")
+    return EXIT_OK
+
+
+register(
+    Command(
+        name="init",
+        help="write a starter workflow file for sample tables",
+        add_arguments=_init_arguments,
+        run=_run_init,
+        description="Write a starter workflow file (TOML) naming the tables and their groups.",
+        epilog=_INIT_EPILOG,
+    )
+)
+
+
+# ---------------------------------------------------------------- render
+
+_RENDER_EPILOG = (
+    """\
+examples:
+  nstress render runs/season/
+  nstress render results/ --title "Colony A, 2025 (synthetic)"
+
+Re-renders report.html and figures/ from the files of a run directory
+(its finished units) or of a fit directory, without refitting.
+
+"""
+    + EXIT_CODES
+)
+
+
+def _render_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("run_dir", metavar="RUN_DIR", type=Path, help="run or fit directory")
+    p.add_argument("--title", help="report title")
+    _verbosity(p)
+
+
+def _run_render(args: argparse.Namespace) -> int:
+    from nstress.workflow.run import render_run
+
+    path = render_run(args.run_dir, args.title)
+    Progress(args.quiet, args.verbose)(f"wrote {path}")
+    return EXIT_OK
+
+
+register(
+    Command(
+        name="render",
+        help="re-render the report of a run or fit directory without refitting",
+        add_arguments=_render_arguments,
+        run=_run_render,
+        description="Re-render report.html from an existing run or fit directory.",
+        epilog=_RENDER_EPILOG,
     )
 )

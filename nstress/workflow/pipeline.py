@@ -20,7 +20,7 @@ from typing import Any
 
 from nstress import __version__
 from nstress.atomic import atomic_write, atomic_write_text
-from nstress.errors import FitError
+from nstress.errors import FitError, InputError
 
 FINISHED_MARK = "manifest.json"
 
@@ -49,6 +49,17 @@ class FitConfig:
         Pass marks (rhat_max, ess_bulk_min, ess_tail_min, divergences_max, ppc_coverage_min).
     product_draws
         Posterior draws used for products and checks.
+    group
+        Fit only the samples of this ``group`` (a workflow unit); the whole
+        input is still read and prepared (reference materials, QC), and the
+        ledger marks the other groups' rows excluded. ``None``: every group.
+    cores
+        Chains run in parallel (execution only).
+    progress
+        Show the sampler's progress bar (execution only).
+    report
+        Render ``report.html`` into the fit directory (execution only; a
+        workflow run renders one merged report instead).
     """
 
     bin_days: float = 4.0
@@ -60,16 +71,20 @@ class FitConfig:
     screening: dict[str, Any] = field(default_factory=dict)
     diagnostics: dict[str, Any] = field(default_factory=dict)
     product_draws: int = 1000
+    group: str | None = None
     cores: int | None = None
     progress: bool = True
+    report: bool = True
 
     def result_config(self) -> dict[str, Any]:
         """Return the settings that change results, as plain data (hashed for caching)."""
         from nstress.model.fit import EXECUTION_ONLY
 
         d = asdict(self)
-        d.pop("cores")
-        d.pop("progress")
+        for key in ("cores", "progress", "report"):
+            d.pop(key)
+        if d["group"] is None:  # a whole-table fit hashes as it always did
+            d.pop("group")
         d["sampler"] = {k: v for k, v in d["sampler"].items() if k not in EXECUTION_ONLY}
         return d
 
@@ -181,6 +196,8 @@ def fit_tables(
     used = prepared.samples
     excluded = set(prepared.ledger.excluded_keys().tolist())
     used = used[~used["key"].isin(excluded)]
+    if cfg.group is not None:
+        used = _only_group(used, prepared, cfg.group)
     tb = build_timebase(used, tissues, bin_width=cfg.bin_days)
     timings["intake_prep_s"] = time.perf_counter() - t_start
     say(f"{tb.n_individuals} individuals, {len(used)} samples, tissues {', '.join(tb.tissues)}")
@@ -274,6 +291,9 @@ def fit_tables(
         "files": sorted(p.name for p in out.iterdir() if not p.name.startswith(".")),
     }
     atomic_write_text(out / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
+    if not cfg.report:
+        say(f"wrote {out} ({'diagnostics passed' if diag.ok else 'DIAGNOSTICS FAILED'})")
+        return manifest
     # the report is rendered from the finished directory's files (re-renderable later)
     say("writing report.html")
     write_report([out], out)
@@ -281,3 +301,18 @@ def fit_tables(
     atomic_write_text(out / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
     say(f"wrote {out} ({'diagnostics passed' if diag.ok else 'DIAGNOSTICS FAILED'})")
     return manifest
+
+
+def _only_group(used: Any, prepared: Any, group: str) -> Any:
+    """Keep the used samples of ``group``; mark the other groups' rows excluded in the ledger."""
+    import numpy as np
+
+    if not (used["group"] == group).any():
+        found = ", ".join(sorted(map(str, used["group"].unique()))) or "none"
+        raise InputError(f"no usable sample in group {group!r} (groups with samples: {found})")
+    samples = prepared.samples
+    other = samples[samples["group"] != group]
+    keys = [k for ks in other["keys"] for k in ks]
+    reason = f"outside this unit's group {group!r}"
+    prepared.ledger.exclude(np.asarray(keys, dtype=np.int64), reason)
+    return used[used["group"] == group]
