@@ -33,7 +33,7 @@ class Ledger:
     """
 
     def __init__(self, frame: pd.DataFrame) -> None:
-        self._frame = frame.copy()
+        self._frame = frame.copy(deep=False)  # copy-on-write keeps it safe from the caller
         n = len(self._frame)
         self._status = np.zeros(n, dtype=np.int8)
         self._events: list[tuple[np.ndarray, str]] = []
@@ -82,7 +82,7 @@ class Ledger:
 
     def to_frame(self) -> pd.DataFrame:
         """Return the ledger table (contract columns first, extra columns after)."""
-        out = self._frame.copy()
+        out = self._frame.copy(deep=False)  # copy-on-write: the carried columns are not copied
         names = np.array([USED, FLAGGED, EXCLUDED])
         out["status"] = names[self._status]
         out["reason"] = self._reason_strings()
@@ -92,33 +92,40 @@ class Ledger:
         rest = [c for c in out.columns if c not in LEDGER_COLUMNS]
         return out[LEDGER_COLUMNS + rest]
 
-    def _reason_strings(self) -> np.ndarray:
-        """Join each row's distinct reasons in the order first given (vectorised).
+    def _reason_codes(self) -> tuple[np.ndarray, list[str]]:
+        """Each row's set of distinct reasons as a code into a list of joined strings.
 
-        Each distinct reason gets a bit; rows are grouped by their bit pattern,
-        so the string work is done once per pattern, not once per row.
+        Reasons are taken in the order first given. A row's code is built one
+        reason at a time: the rows that carry reason ``r`` move from their
+        current code to the code of (current set + ``r``), so the string work
+        is done once per distinct set, not once per row. Code 0 is no reason.
         """
         n = len(self._frame)
-        out = np.full(n, "", dtype=object)
-        if not self._events:
-            return out
-        texts: dict[str, int] = {}
-        for _, text in self._events:
-            texts.setdefault(text, len(texts))
-        words = np.zeros((n, (len(texts) + 63) // 64), dtype=np.uint64)
+        code = np.zeros(n, dtype=np.int64)
+        strings = [""]
+        rows_of: dict[str, list[np.ndarray]] = {}
         for idx, text in self._events:
-            r = texts[text]
-            words[idx, r // 64] |= np.uint64(1) << np.uint64(r % 64)
-        patterns, inverse = np.unique(words, axis=0, return_inverse=True)
-        names = list(texts)
-        strings = []
-        for pat in patterns:
-            parts = [names[r] for r in range(len(names)) if (int(pat[r // 64]) >> (r % 64)) & 1]
-            strings.append("; ".join(parts))
-        return np.asarray(strings, dtype=object)[inverse.ravel()]
+            rows_of.setdefault(text, []).append(idx)
+        for text, parts in rows_of.items():
+            rows = parts[0] if len(parts) == 1 else np.concatenate(parts)
+            inverse, parents = pd.factorize(code[rows])
+            base = len(strings)
+            strings.extend(text if p == 0 else f"{strings[p]}; {text}" for p in parents.tolist())
+            code[rows] = base + inverse  # a row listed twice gets the same new code twice
+        return code, strings
+
+    def _reason_strings(self) -> np.ndarray:
+        """Join each row's distinct reasons in the order first given (vectorised)."""
+        code, strings = self._reason_codes()
+        return np.asarray(strings, dtype=object)[code]
 
     def summary(self) -> pd.DataFrame:
         """Count rows by status and reason."""
-        f = self.to_frame()
-        f["reason"] = f["reason"].replace("", "-")
-        return f.groupby(["status", "reason"]).size().rename("rows").reset_index()
+        code, strings = self._reason_codes()
+        pair = code * 3 + self._status
+        uniq, counts = np.unique(pair, return_counts=True)
+        names = np.array([USED, FLAGGED, EXCLUDED])
+        text = np.asarray(strings, dtype=object)[uniq // 3]
+        text[text == ""] = "-"
+        f = pd.DataFrame({"status": names[uniq % 3], "reason": text, "rows": counts})
+        return f.groupby(["status", "reason"])["rows"].sum().reset_index()
