@@ -28,9 +28,9 @@ from nstress.intake.ledger import Ledger
 from nstress.prep.lipid import CN_BASES, METHODS, normalise_lipid
 from nstress.prep.qc import (
     QCLog,
+    RowKeys,
     add_cn,
     check_cn_range,
-    ledger_keys,
     one_reason,
     tissue_names,
 )
@@ -220,6 +220,7 @@ def prepare(
     ledger = intake.ledger
     qc = QCLog(len(samples))
     refs = resolve_references(getattr(intake, "references", None))
+    row_keys = RowKeys(samples)  # every step below writes ledger entries by sample row
 
     report: dict[str, Any] = {"config": copy.deepcopy(cfg), "n_samples": int(len(samples))}
     report["scale"] = normalise_scale(
@@ -230,18 +231,34 @@ def prepare(
         mode=cfg["scale_normalisation"],
         check_tolerance=cfg["check_tolerance"],
         stretch_tolerance=cfg["stretch_tolerance"],
+        row_keys=row_keys,
     )
-    cn = add_cn(samples, ledger, qc, tolerance=cfg["cn_tolerance"], check=cfg["cn_check"])
-    cn["range"] = check_cn_range(samples, reg, ledger, qc) if cfg["cn_check"] else {}
+    cn = add_cn(
+        samples,
+        ledger,
+        qc,
+        tolerance=cfg["cn_tolerance"],
+        check=cfg["cn_check"],
+        row_keys=row_keys,
+    )
+    cn["range"] = (
+        check_cn_range(samples, reg, ledger, qc, row_keys=row_keys) if cfg["cn_check"] else {}
+    )
     report["cn"] = cn
     report["lipid"] = normalise_lipid(
-        samples, reg, ledger, qc, methods=cfg["lipid"], cn_basis=cfg["lipid_cn_basis"]
+        samples,
+        reg,
+        ledger,
+        qc,
+        methods=cfg["lipid"],
+        cn_basis=cfg["lipid_cn_basis"],
+        row_keys=row_keys,
     )
     names = tissue_names(samples)
     unknown = sorted(set(names.tolist()) - set(reg))
     for name in unknown:
         ledger.note(
-            ledger_keys(samples, names == name),
+            row_keys.of(names == name),
             one_reason(f"tissue {name!r} has no defaults: C:N and lipid checks skipped"),
         )
     report["tissues_without_defaults"] = unknown

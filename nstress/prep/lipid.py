@@ -30,7 +30,7 @@ import pandas as pd
 
 from nstress._chem_equations import cn_mass_from_atomic, lipid_kiljunen2006, lipid_post2007
 from nstress.intake.ledger import Ledger
-from nstress.prep.qc import QCLog, ledger_keys, numeric, tissue_names
+from nstress.prep.qc import QCLog, RowKeys, ledger_keys, numeric, tissue_names
 from nstress.tissues import Tissue
 
 METHODS: dict[str, Callable[[np.ndarray, np.ndarray], np.ndarray] | None] = {
@@ -75,6 +75,7 @@ def normalise_lipid(
     *,
     methods: Mapping[str, str],
     cn_basis: str = "atomic",
+    row_keys: RowKeys | None = None,
 ) -> dict[str, Any]:
     """Apply δ13C lipid normalisation in place where the rules allow it.
 
@@ -100,6 +101,8 @@ def normalise_lipid(
         ``"mass"``: they receive the mass C:N (atomic × 12.011/14.007), in
         case the published calibrations prove to be mass-based. The
         threshold is always compared with the atomic C:N.
+    row_keys
+        :class:`~nstress.prep.qc.RowKeys` of ``samples`` when the caller has them.
 
     Returns
     -------
@@ -117,6 +120,7 @@ def normalise_lipid(
     has_cn = np.isfinite(cn)
     out_d13 = d13.copy()
     label = np.full(len(samples), "", dtype=object)
+    keys_of = row_keys.of if row_keys is not None else (lambda m: ledger_keys(samples, m))
     per_tissue: dict[str, Any] = {}
     for name in sorted(set(names.tolist())):
         tissue = tissues.get(name)
@@ -133,7 +137,7 @@ def normalise_lipid(
             out_d13[apply] = func(d13[apply], cn_eq[apply])
             label[apply] = method
             ledger.note(
-                ledger_keys(samples, apply),
+                keys_of(apply),
                 f"δ13C lipid-normalised ({method}, {METHOD_SOURCES[method]}, "
                 f"{cn_basis} C:N > {thr:g})",
             )
@@ -147,14 +151,14 @@ def normalise_lipid(
             )
         suggests = high & unknown & (func is None)
         ledger.note(
-            ledger_keys(samples, suggests),
+            keys_of(suggests),
             f"C:N > {thr:g} suggests lipid, δ13C not lipid-normalised "
             f"(lipid_extracted unknown, {name} lipid method 'none')",
         )
         qc.add(suggests, "C:N suggests lipid, not corrected")
         cn_unknown = m & ~has_cn & ~extracted & (func is not None)
         ledger.note(
-            ledger_keys(samples, cn_unknown),
+            keys_of(cn_unknown),
             f"C:N unknown: δ13C not lipid-normalised ({name} method {method})",
         )
         shift = out_d13[apply] - d13[apply]

@@ -8,7 +8,7 @@ keys (:func:`ledger_keys`) and column access (:func:`numeric`,
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from itertools import chain
 from typing import Any
 
@@ -92,11 +92,26 @@ def tissue_names(samples: pd.DataFrame) -> np.ndarray:
     return s.to_numpy(dtype=object)
 
 
+def _flat_keys(vals: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Flatten a ``keys`` column: per-row counts and the keys in row order.
+
+    Cells that are not a tuple, list or array count as no keys.
+    """
+    if set(map(type, vals)) <= {tuple, list}:  # the intake's tuples: no per-row checks
+        lens = np.fromiter(map(len, vals), dtype=np.int64, count=len(vals))
+        flat = np.fromiter(chain.from_iterable(vals), dtype=np.int64, count=int(lens.sum()))
+        return lens, flat
+    ok = [v if isinstance(v, tuple | list | np.ndarray) else () for v in vals]
+    lens = np.fromiter(map(len, ok), dtype=np.int64, count=len(ok))
+    return lens, np.fromiter(chain.from_iterable(ok), dtype=np.int64)
+
+
 def ledger_keys(samples: pd.DataFrame, mask: np.ndarray) -> np.ndarray:
     """Return the ledger keys of the input rows behind the sample rows in ``mask``.
 
     A sample that combines several input rows (replicates) carries them
-    all in ``keys``; every one of them gets the ledger entry.
+    all in ``keys``; every one of them gets the ledger entry. For many
+    look-ups on one table, :class:`RowKeys` flattens the keys once.
     """
     mask = np.asarray(mask, dtype=bool)
     if not mask.any():
@@ -105,12 +120,70 @@ def ledger_keys(samples: pd.DataFrame, mask: np.ndarray) -> np.ndarray:
     if "key" in samples.columns:
         parts.append(pd.to_numeric(samples.loc[mask, "key"], errors="coerce").dropna().to_numpy())
     if "keys" in samples.columns:
-        vals = samples["keys"].to_numpy(dtype=object)[mask]
-        flat = chain.from_iterable(v for v in vals if isinstance(v, tuple | list | np.ndarray))
-        parts.append(np.fromiter(flat, dtype=np.int64))
+        parts.append(_flat_keys(samples["keys"].to_numpy(dtype=object)[mask])[1])
     if not parts:
         return np.empty(0, dtype=np.int64)
     return np.unique(np.concatenate(parts).astype(np.int64))
+
+
+class RowKeys:
+    """The ledger keys behind each sample row, flattened once for many look-ups.
+
+    ``RowKeys(samples).of(mask)`` equals ``ledger_keys(samples, mask)``; the
+    table's ``key`` and ``keys`` columns must not change in between.
+
+    Parameters
+    ----------
+    samples
+        Sample table with ``key`` and/or ``keys`` (tuples of input-row keys).
+    """
+
+    def __init__(self, samples: pd.DataFrame) -> None:
+        n = len(samples)
+        has_key = np.zeros(n, dtype=bool)
+        key = np.zeros(n, dtype=np.int64)
+        if "key" in samples.columns:
+            k = pd.to_numeric(samples["key"], errors="coerce").to_numpy(dtype=float)
+            has_key = ~np.isnan(k)
+            key = np.where(has_key, k, 0).astype(np.int64)
+        lens, flat = np.zeros(n, dtype=np.int64), np.empty(0, dtype=np.int64)
+        if "keys" in samples.columns:
+            lens, flat = _flat_keys(samples["keys"].to_numpy(dtype=object))
+        self._count = has_key.astype(np.int64) + lens
+        self._start = np.cumsum(self._count) - self._count
+        keys = np.empty(int(self._count.sum()), dtype=np.int64)
+        keys[self._start[has_key]] = key[has_key]
+        first = self._start + has_key  # where each row's ``keys`` begin
+        keys[np.repeat(first - (np.cumsum(lens) - lens), lens) + np.arange(flat.size)] = flat
+        self._keys = keys
+
+    def of(self, mask: np.ndarray) -> np.ndarray:
+        """Return the sorted distinct ledger keys behind the rows in ``mask``.
+
+        Parameters
+        ----------
+        mask
+            Boolean mask over the sample rows.
+
+        Returns
+        -------
+        numpy.ndarray
+            int64 keys.
+        """
+        rows = np.flatnonzero(np.asarray(mask, dtype=bool))
+        count = self._count[rows]
+        total = int(count.sum())
+        if total == 0:
+            return np.empty(0, dtype=np.int64)
+        pos = np.repeat(self._start[rows] - (np.cumsum(count) - count), count) + np.arange(total)
+        return np.unique(self._keys[pos])
+
+
+def _keys_of(samples: pd.DataFrame, row_keys: RowKeys | None) -> Callable[[np.ndarray], np.ndarray]:
+    """``row_keys.of`` when given, else :func:`ledger_keys` on ``samples``."""
+    if row_keys is not None:
+        return row_keys.of
+    return lambda mask: ledger_keys(samples, mask)
 
 
 def add_cn(
@@ -120,6 +193,7 @@ def add_cn(
     *,
     tolerance: float,
     check: bool,
+    row_keys: RowKeys | None = None,
 ) -> dict[str, Any]:
     """Fill ``cn_ratio`` from %C and %N where it is missing, in place, and check agreement.
 
@@ -141,6 +215,8 @@ def add_cn(
         Relative tolerance between the table's C:N and the one from %C/%N.
     check
         Whether to flag disagreements.
+    row_keys
+        :class:`RowKeys` of ``samples`` when the caller has them.
 
     Returns
     -------
@@ -161,7 +237,7 @@ def add_cn(
         with np.errstate(invalid="ignore"):
             disagree = both & (np.abs(table - computed) > tolerance * computed)
         ledger.flag(
-            ledger_keys(samples, disagree),
+            _keys_of(samples, row_keys)(disagree),
             f"cn_ratio disagrees with %C/%N by more than {tolerance:.0%} "
             f"(a mass C:N entered as atomic differs by {MASS_ATOMIC_GAP:.0%})",
         )
@@ -183,6 +259,8 @@ def check_cn_range(
     tissues: Mapping[str, Tissue],
     ledger: Ledger,
     qc: QCLog,
+    *,
+    row_keys: RowKeys | None = None,
 ) -> dict[str, Any]:
     """Flag rows whose C:N lies outside their tissue's accepted range.
 
@@ -200,6 +278,8 @@ def check_cn_range(
         Ledger to write flags to.
     qc
         Per-row QC remarks.
+    row_keys
+        :class:`RowKeys` of ``samples`` when the caller has them.
 
     Returns
     -------
@@ -210,6 +290,7 @@ def check_cn_range(
     cn = numeric(samples, "cn_ratio")
     source = text(samples, "cn_source")
     known = np.isfinite(cn)
+    keys_of = _keys_of(samples, row_keys)
     out: dict[str, Any] = {}
     for name in sorted(set(names.tolist())):
         tissue = tissues.get(name)
@@ -223,7 +304,7 @@ def check_cn_range(
         for origin, label in (("table", "C:N as given"), ("computed", "C:N from %C/%N")):
             bad = (below | above) & (source == origin)
             ledger.flag(
-                ledger_keys(samples, bad),
+                keys_of(bad),
                 f"C:N outside the {name} range {lo:g}-{hi:g} ({src}), {label}",
             )
         qc.add(below, "C:N ", cn, f" below {lo:g}")

@@ -37,7 +37,7 @@ from nstress._chem_equations import scale_line_lstsq, two_point_line, two_point_
 from nstress.dims import ISOTOPES
 from nstress.errors import ConfigError, InputError
 from nstress.intake.ledger import Ledger
-from nstress.prep.qc import QCLog, ledger_keys, numeric, one_reason, text
+from nstress.prep.qc import QCLog, RowKeys, numeric, one_reason, text
 
 MODES = ("auto", "off", "on")
 LABEL = {"d15N": "δ15N", "d13C": "δ13C"}
@@ -45,83 +45,116 @@ _POOLED = "all"
 _NO_BATCH = "(none)"
 
 
+class _RefColumns:
+    """The reference rows' columns as arrays, read once (one calibration per batch and isotope).
+
+    Indexing the table per batch costs more than the arithmetic; positions
+    into these arrays stand for the rows.
+    """
+
+    def __init__(self, refs: pd.DataFrame) -> None:
+        self.rm = refs["rm"].to_numpy(dtype=object)
+        self.role = refs["role"].to_numpy(dtype=object)
+        self.value = {iso: refs[iso].to_numpy(dtype=float) for iso in ISOTOPES}
+        self.certified = {iso: refs[f"certified_{iso}"].to_numpy(dtype=float) for iso in ISOTOPES}
+
+
 def _batch_groups(
     samples: pd.DataFrame, refs: pd.DataFrame
-) -> tuple[list[tuple[str, np.ndarray, pd.DataFrame]], list[str]]:
-    """Return ``[(label, sample_mask, reference_rows)]`` and warnings."""
+) -> tuple[list[tuple[str, np.ndarray, np.ndarray]], list[str]]:
+    """Return ``[(label, sample_rows, reference_rows)]`` and warnings.
+
+    Both are ascending positions: of the batch's samples, and of the
+    reference rows that calibrate them.
+    """
     sb = text(samples, "analysis_batch")
-    ref_batches = set(refs["batch"].tolist())
+    rb = refs["batch"].to_numpy(dtype=object)
+    ref_batches = set(rb.tolist())
     warnings: list[str] = []
-    if ref_batches <= {""} or (sb == "").all():
+    codes, uniq = pd.factorize(sb)
+    if ref_batches <= {""} or (len(uniq) <= 1 and (sb == "").all()):
         if len(ref_batches - {""}) > 1:
             warnings.append(
                 "samples carry no analysis_batch: reference rows of batches "
                 f"{sorted(ref_batches - {''})} were pooled into one normalisation"
             )
-        return [(_POOLED, np.ones(len(samples), dtype=bool), refs)], warnings
+        return [(_POOLED, np.arange(len(samples)), np.arange(len(refs)))], warnings
     groups = []
-    fallback = refs[refs["batch"] == ""]
-    for b in sorted(set(sb.tolist())):
-        own = refs[refs["batch"] == b] if b else refs.iloc[0:0]
-        groups.append((b or _NO_BATCH, sb == b, own if len(own) else fallback))
+    ref_rows: dict[str, list[int]] = {}
+    for i, rbatch in enumerate(rb.tolist()):
+        ref_rows.setdefault(rbatch, []).append(i)
+    fallback = np.asarray(ref_rows.get("", []), dtype=np.int64)
+    order = np.argsort(codes, kind="stable")
+    bounds = np.searchsorted(codes[order], np.arange(len(uniq) + 1))
+    rows_of = {str(b): order[bounds[j] : bounds[j + 1]] for j, b in enumerate(uniq.tolist())}
+    for b in sorted(rows_of):
+        own = np.asarray(ref_rows.get(b, []) if b else [], dtype=np.int64)
+        groups.append((b or _NO_BATCH, rows_of[b], own if len(own) else fallback))
     return groups, warnings
 
 
-def _anchors(refs: pd.DataFrame, iso: str) -> tuple[np.ndarray, np.ndarray, str]:
-    """Return boolean masks (anchor rows, check rows) and how anchors were chosen."""
-    meas = refs[iso].to_numpy(dtype=float)
-    cert = refs[f"certified_{iso}"].to_numpy(dtype=float)
+def _anchors(rc: _RefColumns, rows: np.ndarray, iso: str) -> tuple[np.ndarray, np.ndarray, str]:
+    """Return boolean masks over ``rows`` (anchor rows, check rows) and how anchors were chosen."""
+    meas = rc.value[iso][rows]
+    cert = rc.certified[iso][rows]
     usable = np.isfinite(meas) & np.isfinite(cert)
-    roles = refs["role"].to_numpy(dtype=object)
+    roles = rc.role[rows]
     if (roles != "").any():
         anchor = usable & (roles == "anchor")
         return anchor, usable & ~anchor, "reference_role"
     if not usable.any():
         return usable, usable, "none usable"
-    rms = refs["rm"].to_numpy(dtype=object)
+    rms = rc.rm[rows]
     lo_rm = rms[usable][np.argmin(cert[usable])]
     hi_rm = rms[usable][np.argmax(cert[usable])]
     anchor = usable & np.isin(rms, [lo_rm, hi_rm])
     return anchor, usable & ~anchor, "most extreme assigned values (no roles given)"
 
 
-def _fit(refs: pd.DataFrame, anchor: np.ndarray, iso: str, batch: str) -> dict[str, Any] | None:
-    """Fit the normalisation line through the anchor means; None if < 2 distinct anchors."""
-    a = refs[anchor]
-    g = (
-        a.groupby("rm", sort=False)
-        .agg(measured=(iso, "mean"), n=(iso, "size"), certified=(f"certified_{iso}", "first"))
-        .sort_values("certified")
-    )
-    if len(g) < 2 or g["certified"].nunique() < 2:
+def _fit(
+    refs: pd.DataFrame, rc: _RefColumns, rows: np.ndarray, iso: str, batch: str
+) -> dict[str, Any] | None:
+    """Fit the line through the anchor means (anchors: positions ``rows``); None if < 2 distinct.
+
+    Per material, the same numbers as ``refs.iloc[rows].groupby("rm", sort=False)``
+    aggregated and sorted by the assigned value, without pandas' overhead per call.
+    """
+    codes, rms = pd.factorize(rc.rm[rows])
+    first = np.unique(codes, return_index=True)[1]
+    cert = rc.certified[iso][rows][first]
+    order = np.argsort(cert, kind="quicksort")  # what sort_values uses (no NaN here)
+    means = pd.Series(rc.value[iso][rows]).groupby(codes).mean().to_numpy()  # pandas' own mean
+    counts = np.bincount(codes, minlength=len(rms))[order].tolist()
+    names = [str(v) for v in np.asarray(rms, dtype=object)[order].tolist()]
+    x, y = means[order].astype(float), cert[order].astype(float)
+    if len(names) < 2 or len(set(y.tolist())) < 2:
         return None
-    x, y = g["measured"].to_numpy(float), g["certified"].to_numpy(float)
     try:
-        if len(g) == 2:
+        if len(names) == 2:
             slope, intercept = two_point_line(x[0], y[0], x[1], y[1])
             method = "two-point (Paul et al. 2007)"
         else:
             slope, intercept = scale_line_lstsq(x, y)
-            method = f"least squares through {len(g)} anchors (not exactly two-point)"
+            method = f"least squares through {len(names)} anchors (not exactly two-point)"
     except (ZeroDivisionError, ValueError) as exc:
-        first = a.iloc[0]
+        first_row = refs.iloc[int(rows[0])]
         raise InputError(
-            f"anchors {list(g.index)} have the same mean measured {LABEL[iso]} in batch "
+            f"anchors {names} have the same mean measured {LABEL[iso]} in batch "
             f"{batch!r}; no normalisation line is defined",
-            file=str(first.get("source_file", "")) or None,
-            row=int(first["source_row"]) if pd.notna(first.get("source_row")) else None,
+            file=str(first_row.get("source_file", "")) or None,
+            row=int(first_row["source_row"]) if pd.notna(first_row.get("source_row")) else None,
             column=iso,
-            value=float(first[iso]),
+            value=float(first_row[iso]),
         ) from exc
     return {
         "anchors": [
             {
-                "rm": str(rm),
-                "n": int(r.n),
-                "measured_mean": float(r.measured),
-                "certified": float(r.certified),
+                "rm": name,
+                "n": int(k),
+                "measured_mean": float(xm),
+                "certified": float(yc),
             }
-            for rm, r in g.iterrows()
+            for name, k, xm, yc in zip(names, counts, x.tolist(), y.tolist(), strict=True)
         ],
         "method": method,
         "slope": float(slope),
@@ -138,30 +171,27 @@ def _apply(values: np.ndarray, fit: dict[str, Any]) -> np.ndarray:
     return fit["slope"] * values + fit["intercept"]
 
 
-def _residuals(refs: pd.DataFrame, check: np.ndarray, iso: str, fit: dict[str, Any]) -> list:
-    c = refs[check]
-    if not len(c):
+def _residuals(rc: _RefColumns, rows: np.ndarray, iso: str, fit: dict[str, Any]) -> list:
+    """Check-standard residuals per material (check rows: positions ``rows``), sorted by name."""
+    if not rows.size:
         return []
-    res = pd.DataFrame(
-        {
-            "rm": c["rm"].to_numpy(),
-            "measured": c[iso].to_numpy(float),
-            "normalised": _apply(c[iso].to_numpy(float), fit),
-            "certified": c[f"certified_{iso}"].to_numpy(float),
-        }
-    )
-    res["residual"] = res["normalised"] - res["certified"]
+    rm = rc.rm[rows]
+    normalised = _apply(rc.value[iso][rows], fit)
+    certified = rc.certified[iso][rows]
+    residual = normalised - certified
     out = []
-    for rm, r in res.groupby("rm", sort=True):
+    for name in sorted(set(rm.tolist())):  # as a groupby over rm, without its overhead
+        m = rm == name
+        res, norm = pd.Series(residual[m]), pd.Series(normalised[m])
         out.append(
             {
-                "rm": str(rm),
-                "n": int(len(r)),
-                "certified": float(r["certified"].iloc[0]),
-                "normalised_mean": float(r["normalised"].mean()),
-                "mean_residual": float(r["residual"].mean()),
-                "sd_residual": float(r["residual"].std(ddof=1)) if len(r) > 1 else None,
-                "max_abs_residual": float(r["residual"].abs().max()),
+                "rm": str(name),
+                "n": int(m.sum()),
+                "certified": float(certified[m][0]),
+                "normalised_mean": float(norm.mean()),
+                "mean_residual": float(res.mean()),
+                "sd_residual": float(res.std(ddof=1)) if m.sum() > 1 else None,
+                "max_abs_residual": float(res.abs().max()),
             }
         )
     return out
@@ -176,6 +206,7 @@ def normalise_scale(
     mode: str = "auto",
     check_tolerance: float = 0.3,
     stretch_tolerance: float = 0.1,
+    row_keys: RowKeys | None = None,
 ) -> dict[str, Any]:
     """Scale-normalise the samples' δ15N and δ13C in place, batch by batch.
 
@@ -202,6 +233,9 @@ def normalise_scale(
         samples are flagged (0.3 ‰ ≈ twice a typical 0.15 ‰ SD: common practice).
     stretch_tolerance
         |slope − 1| above which the batch's samples are flagged (common practice).
+    row_keys
+        :class:`~nstress.prep.qc.RowKeys` of ``samples`` when the caller has
+        them (saves flattening the ``keys`` column again).
 
     Returns
     -------
@@ -242,20 +276,34 @@ def normalise_scale(
         return report
     groups, warnings = _batch_groups(samples, refs)
     report["warnings"].extend(warnings)
+    rc = _RefColumns(refs)
     ref_keys = numeric(refs, "key")
-    done: dict[str, np.ndarray] = {iso: np.zeros(len(samples), dtype=bool) for iso in ISOTOPES}
+    ref_norm = {iso: np.full(len(refs), np.nan) for iso in ISOTOPES}
+    keys_of = row_keys.of if row_keys is not None else RowKeys(samples).of
+    n = len(samples)
+    measured = {iso: numeric(samples, iso) for iso in ISOTOPES}
+    values = {iso: measured[iso].copy() for iso in ISOTOPES}  # batches are disjoint
+    done: dict[str, np.ndarray] = {iso: np.zeros(n, dtype=bool) for iso in ISOTOPES}
     missing: dict[str, list[tuple[str, np.ndarray]]] = {iso: [] for iso in ISOTOPES}
-    for batch, smask, r in groups:
-        r_idx = refs.index.get_indexer(r.index)
+
+    def rows_mask(rows: np.ndarray) -> np.ndarray:
+        m = np.zeros(n, dtype=bool)
+        m[rows] = True
+        return m
+
+    for batch, srows, rrows in groups:
         for iso in ISOTOPES:
-            vals = numeric(samples, iso)
-            target = smask & np.isfinite(vals)
-            if not target.any():
+            vals = measured[iso]
+            trows = srows[np.isfinite(vals[srows])]
+            if not trows.size:
                 continue
-            anchor, check, chosen = _anchors(r, iso) if len(r) else (None, None, "no rows")
-            fit = _fit(r, anchor, iso, batch) if anchor is not None else None
+            if len(rrows):
+                anchor, check, chosen = _anchors(rc, rrows, iso)
+                fit = _fit(refs, rc, rrows[anchor], iso, batch)
+            else:
+                anchor, check, chosen, fit = None, None, "no rows", None
             if fit is None:
-                have = sorted(set(r.loc[anchor, "rm"])) if anchor is not None else []
+                have = sorted(set(rc.rm[rrows[anchor]].tolist())) if anchor is not None else []
                 reason = (
                     f"fewer than two distinct anchors for {LABEL[iso]} in batch {batch!r} "
                     f"(anchors found: {have})"
@@ -269,56 +317,51 @@ def normalise_scale(
                     {
                         "batch": batch,
                         "isotope": iso,
-                        "n_samples": int(target.sum()),
+                        "n_samples": int(trows.size),
                         "reason": reason,
                     }
                 )
-                missing[iso].append((batch, target))
+                missing[iso].append((batch, trows))
                 continue
-            new = _apply(vals[target], fit)
-            vals_out = vals.copy()
-            vals_out[target] = new
-            samples[iso] = vals_out
-            flags = samples[f"{iso}_scaled"].to_numpy(dtype=bool).copy()
-            flags[target] = True
-            samples[f"{iso}_scaled"] = flags
-            done[iso] |= target
+            assert anchor is not None and check is not None
+            values[iso][trows] = _apply(vals[trows], fit)
+            done[iso][trows] = True
+            target_keys = keys_of(rows_mask(trows))
             names = ", ".join(a["rm"] for a in fit["anchors"])
             ledger.note(
-                ledger_keys(samples, target),
+                target_keys,
                 one_reason(
                     f"{LABEL[iso]} scale-normalised ({fit['method']}, anchors {names}, "
                     f"batch {batch})"
                 ),
             )
             # reference rows: anchors and check standards of this calibration
-            ref_norm = refs[f"normalised_{iso}"].to_numpy(dtype=float).copy()
-            usable_r = anchor | check
-            ref_norm[r_idx[usable_r]] = _apply(r[iso].to_numpy(float)[usable_r], fit)
-            refs[f"normalised_{iso}"] = ref_norm
+            usable_r = rrows[anchor | check]
+            ref_norm[iso][usable_r] = _apply(rc.value[iso][usable_r], fit)
             for mask, what in ((anchor, "anchor"), (check, "check standard")):
-                ks = ref_keys[r_idx[mask]]
+                ks = ref_keys[rrows[mask]]
                 ledger.note(
                     ks[np.isfinite(ks)].astype(np.int64),
                     one_reason(f"reference material: {LABEL[iso]} {what} (batch {batch})"),
                 )
             lo, hi = fit["measured_range"]
-            outside = target & ((vals < lo) | (vals > hi))
+            out_rows = trows[(vals[trows] < lo) | (vals[trows] > hi)]
+            outside = rows_mask(out_rows)
             ledger.flag(
-                ledger_keys(samples, outside),
+                keys_of(outside),
                 one_reason(
                     f"{LABEL[iso]} outside the anchor range ({names}, batch {batch}): extrapolated"
                 ),
             )
             qc.add(outside, f"{LABEL[iso]} outside the anchor range")
-            residuals = _residuals(r, check, iso, fit)
+            residuals = _residuals(rc, rrows[check], iso, fit)
             entry = {k: v for k, v in fit.items() if not k.startswith("_")}
             entry.update(
                 batch=batch,
                 isotope=iso,
                 anchor_choice=chosen,
-                n_samples=int(target.sum()),
-                n_outside_anchor_range=int(outside.sum()),
+                n_samples=int(trows.size),
+                n_outside_anchor_range=int(out_rows.size),
                 checks=residuals,
             )
             if abs(fit["slope"] - 1.0) > stretch_tolerance:
@@ -326,7 +369,7 @@ def normalise_scale(
                     f"{LABEL[iso]} scale stretch {fit['slope']:.3f} in batch {batch} is far "
                     f"from 1 (mislabelled reference material?)"
                 )
-                ledger.flag(ledger_keys(samples, target), msg)
+                ledger.flag(target_keys, msg)
                 report["warnings"].append(msg)
             for c in residuals:
                 if abs(c["mean_residual"]) > check_tolerance:
@@ -335,14 +378,21 @@ def normalise_scale(
                         f"{LABEL[iso]} normalisation (batch {batch}, "
                         f"tolerance {check_tolerance:g} ‰)"
                     )
-                    ledger.flag(ledger_keys(samples, target), msg)
+                    ledger.flag(target_keys, msg)
                     report["warnings"].append(msg)
             report["calibrations"].append(entry)
     for iso in ISOTOPES:
+        refs[f"normalised_{iso}"] = ref_norm[iso]
+    for iso in ISOTOPES:
         if done[iso].any():
-            for batch, target in missing[iso]:
+            samples[iso] = values[iso]
+            samples[f"{iso}_scaled"] = done[iso]
+    for iso in ISOTOPES:
+        if done[iso].any():
+            for batch, trows in missing[iso]:
+                target = rows_mask(trows)
                 ledger.flag(
-                    ledger_keys(samples, target),
+                    keys_of(target),
                     one_reason(
                         f"{LABEL[iso]} not scale-normalised in batch {batch} "
                         "while other batches were"
