@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from nstress.intake.ledger import EXCLUDED, FLAGGED, USED, Ledger
+from nstress.intake.ledger import EXCLUDED, FLAGGED, LEDGER_COLUMNS, USED, Ledger
 
 
 def _frame(n: int) -> pd.DataFrame:
@@ -65,15 +65,7 @@ def test_reasons_and_status_match_row_by_row_reference(seed):
     assert f["status"].tolist() == status
     assert f["reason"].tolist() == reasons
     assert (f["reason"].iloc[-50:] == "").all()
-    assert list(f.columns) == [
-        "source_file",
-        "source_row",
-        "individual",
-        "tissue",
-        "status",
-        "reason",
-        "comment",
-    ]
+    assert list(f.columns) == LEDGER_COLUMNS + ["comment"]
     # the summary counts what to_frame shows
     g = f.assign(reason=f["reason"].replace("", "-")).groupby(["status", "reason"]).size()
     expected = g.rename("rows").reset_index()

@@ -205,15 +205,18 @@ def build_timebase(
     tissues = tissues or DEFAULT_TISSUES
     if bin_width <= 0:
         raise InputError("bin width must be > 0 days", column="bin_width", value=bin_width)
-    df = samples.reset_index(drop=True).copy()
+    df = samples.reset_index(drop=True)  # a new frame (copy-on-write): samples stay as they are
     if df.empty:
         raise InputError("no usable samples are left to place in time")
     df["tissue"] = df["tissue"].astype(str)
     present = sorted(df["tissue"].unique(), key=lambda t: (tissues[t].is_keratin, t))
     tdef = {t: tissues[t] for t in present}
     t_index = {t: j for j, t in enumerate(present)}
-    is_ker = df["tissue"].map(lambda t: tdef[t].is_keratin).to_numpy(bool)
+    codes, names = pd.factorize(df["tissue"])
+    tix = np.array([t_index[str(t)] for t in names], dtype=np.int64)[codes]  # into ``present``
+    is_ker = np.array([tdef[t].is_keratin for t in present], dtype=bool)[tix]
     ker_tissues = [t for t in present if tdef[t].is_keratin]
+    kslot = np.array([ker_tissues.index(t) if t in ker_tissues else -1 for t in present])[tix]
 
     # ---- nominal ages of keratin edges -----------------------------------
     n = len(df)
@@ -221,7 +224,9 @@ def build_timebase(
     h_hi = np.full(n, np.nan)
     gsd = np.full(n, np.nan)
     if is_ker.any():
-        kd = df.loc[is_ker].copy()
+        needed = ["individual", "tissue", "collected", "position_mm", "segment_length_mm"]
+        needed += [c for c in ("growth_mm_per_day", "growth_sd_mm_per_day") if c in df]
+        kd = df.loc[is_ker, needed]  # only what the keratin ages need, not every column
         kd["segment_length_mm"] = _segment_lengths(kd)
         x = kd["position_mm"].astype(float).to_numpy()
         half = 0.5 * kd["segment_length_mm"].to_numpy()
@@ -278,9 +283,9 @@ def build_timebase(
         )
     slowest = np.exp(-GROWTH_SD_SPAN * np.nan_to_num(gsd))
     soft = np.array([tdef[t].softness_days if tdef[t].is_keratin else 0.0 for t in present])
-    t_soft = soft[df["tissue"].map(t_index).to_numpy()]
+    t_soft = soft[tix]
     hl = np.array([tdef[t].half_life_days if not tdef[t].is_keratin else 0.0 for t in present])
-    t_hl = hl[df["tissue"].map(t_index).to_numpy()]
+    t_hl = hl[tix]
     earliest = np.where(
         is_ker,
         t_event - h_hi / slowest - 3 * t_soft,
@@ -326,7 +331,7 @@ def build_timebase(
         )
         o.mask[ii, pos] = True
         o.sample[ii, pos] = order
-        o.tissue[ii, pos] = df["tissue"].map(t_index).to_numpy()[order]
+        o.tissue[ii, pos] = tix[order]
         yv = df[["d15N", "d13C"]].to_numpy(float)[order]
         sdv = df[["sd_d15N", "sd_d13C"]].to_numpy(float)[order]
         o.y_mask[ii, pos] = ~np.isnan(yv)
@@ -339,8 +344,7 @@ def build_timebase(
             o.slot = np.zeros(shape, int)
             o.h_lo[ii, pos] = h_lo[order]
             o.h_hi[ii, pos] = h_hi[order]
-            kslot = {t: j for j, t in enumerate(ker_tissues)}
-            o.slot[ii, pos] = df["tissue"].map(kslot).to_numpy()[order]
+            o.slot[ii, pos] = kslot[order]
         else:
             # pads sit on the last real bin so their (masked) weights stay finite
             o.t[~o.mask] = bin_width * 0.5
@@ -350,10 +354,8 @@ def build_timebase(
     keratin = _obs(is_ker, keratin=True)
     growth_sd = np.full((I, max(len(ker_tissues), 1)), np.nan)
     if is_ker.any():
-        kslot = {t: j for j, t in enumerate(ker_tissues)}
-        sl = df["tissue"].map(kslot).to_numpy()
         for j in range(len(ker_tissues)):
-            m = is_ker & (sl == j)
+            m = is_ker & (kslot == j)
             s = pd.Series(gsd[m]).groupby(ind_codes[m]).median()
             growth_sd[s.index.to_numpy(), j] = s.to_numpy()
     return TimeBase(
