@@ -259,3 +259,33 @@ def test_every_command_has_help_with_examples_and_exit_codes(capsys):
         out = capsys.readouterr().out
         assert "examples:" in out
         assert "exit code" in out.lower()
+
+
+def test_demo_runs_the_demo_workflow_with_command_line_overrides(monkeypatch, tmp_path):
+    from nstress.workflow import run as run_module
+
+    seen = {}
+
+    def fake_run(wf, **kwargs):
+        seen["wf"], seen["kwargs"] = wf, kwargs
+        manifest = {"units": [], "failed_units": [], "diagnostics_failed_units": []}
+        return run_module.RunOutcome(0, manifest, Path(kwargs["out"]))
+
+    monkeypatch.setattr(run_module, "run_workflow", fake_run)
+    out = tmp_path / "demo_run"
+    assert main(["demo", "--out", str(out), "--draws", "200", "--tune", "150", "--quiet"]) == 0
+    wf = seen["wf"]
+    assert wf.path == ROOT / "workflows" / "demo.toml"
+    assert (wf.fit.sampler["draws"], wf.fit.sampler["tune"], wf.fit.sampler["chains"]) == (
+        200,
+        150,
+        2,
+    )
+    assert seen["kwargs"]["out"] == out
+    assert main(["demo", "--out", str(out)]) == 0
+    assert seen["wf"].fit.sampler["draws"] == 1000
+
+
+def test_demo_rejects_a_bad_override(capsys):
+    assert main(["demo", "--draws", "0"]) == 2
+    assert "key 'sampler.draws': expected a value >= 1, got 0" in capsys.readouterr().err

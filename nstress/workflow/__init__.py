@@ -1,4 +1,4 @@
-"""Workflow layer: the command line and (later) workflow files and runs.
+"""Workflow layer: one fit (pipeline), workflow files (config), runs of units (run), the CLI.
 
 The ``nstress`` console command is :func:`nstress.workflow.cli.main`.
 """

@@ -258,8 +258,9 @@ def execute_unit(job: dict[str, Any]) -> dict[str, Any]:
     out = Path(job["out"])
     out.mkdir(parents=True, exist_ok=True)
     clear_partial(out)
-    for var in THREAD_VARS:  # for libraries this process has not loaded yet
+    for var in THREAD_VARS:  # for libraries this process has not loaded yet (Dask workers)
         os.environ.setdefault(var, str(job["threads"]))
+    os.environ.setdefault("XLA_FLAGS", XLA_ONE_THREAD)
     t0 = time.perf_counter()
     with open(out / UNIT_LOG, "a", encoding="utf-8") as fh:
 
