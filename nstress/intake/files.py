@@ -97,40 +97,54 @@ def read_raw(path: str | Path) -> RawTable:
     except OSError as exc:
         raise InputError(f"cannot read file: {exc.strerror or exc}", file=name) from exc
     digest = hashlib.sha256(data).hexdigest()
-    if not data.strip():
+    if not data or data.isspace():  # as ``not data.strip()``, without copying the file
         raise InputError("file is empty; expected a header row and data rows", file=name)
     notes: list[str] = []
     decimal_comma = False
+    stripped = False
     if suffix in TEXT_SUFFIXES:
-        table, decimal_comma = _read_text(data, name, notes)
+        cells, decimal_comma = _read_text(data, name, notes)
     elif suffix in PARQUET_SUFFIXES:
-        table = _read_parquet(data, name)
+        cells = _read_parquet(data, name)
     else:
-        table = _read_excel(data, name)
-    if len(table) < 1:
-        raise InputError("file is empty; expected a header row and data rows", file=name)
-    header = [str(h).strip() for h in table.iloc[0].tolist()]
-    body = table.iloc[1:].reset_index(drop=True)
+        cells = _read_excel(data, name)
+    if isinstance(cells, _Cells):  # header apart and every cell stripped already
+        header, body, stripped = cells.header, cells.body, True
+    else:
+        if len(cells) < 1:
+            raise InputError("file is empty; expected a header row and data rows", file=name)
+        header = [str(h) for h in cells.iloc[0].tolist()]
+        body = cells.iloc[1:].reset_index(drop=True)
+    header = [h.strip() for h in header]
     if len(body) == 0:
         raise InputError("file has a header but no data rows", file=name)
     body.columns = range(body.shape[1])
-    frame, headers = _name_columns(body, header, name, notes)
+    frame, headers = _name_columns(body, header, name, notes, stripped=stripped)
     return RawTable(name, digest, frame, headers, decimal_comma, notes)
 
 
-def _decode(data: bytes, name: str, notes: list[str]) -> str:
+@dataclass
+class _Cells:
+    """A reader's result with the header row apart and every body cell already stripped."""
+
+    header: list[str]
+    body: pd.DataFrame
+
+
+def _decode(data: bytes, name: str, notes: list[str]) -> tuple[str, bytes | None]:
+    """Return the text, and its UTF-8 bytes when they are ``data`` itself (no re-encoding)."""
     if data.startswith(b"\xef\xbb\xbf"):
         data = data[3:]
     elif data.startswith((b"\xff\xfe", b"\xfe\xff")):
         try:
-            return data.decode("utf-16")
+            return data.decode("utf-16"), None
         except UnicodeDecodeError as exc:
             raise InputError("cannot decode file as UTF-16", file=name) from exc
     try:
-        return data.decode("utf-8")
+        return data.decode("utf-8"), data  # valid UTF-8 round-trips exactly
     except UnicodeDecodeError:
         notes.append(f"{name}: not valid UTF-8; read as Latin-1")
-        return data.decode("latin-1")
+        return data.decode("latin-1"), None
 
 
 def _sniff_delimiter(text: str) -> str:
@@ -141,21 +155,26 @@ def _sniff_delimiter(text: str) -> str:
     return best if counts[best] > 0 else ","
 
 
-def _read_text(data: bytes, name: str, notes: list[str]) -> tuple[pd.DataFrame, bool]:
-    text = _decode(data, name, notes)
-    if not text.strip():
+def _read_text(data: bytes, name: str, notes: list[str]) -> tuple[pd.DataFrame | _Cells, bool]:
+    text, utf8 = _decode(data, name, notes)
+    if not text or text.isspace():  # as ``not text.strip()``, without copying the text
         raise InputError("file is empty; expected a header row and data rows", file=name)
     sep = _sniff_delimiter(text)
-    table = _read_text_arrow(text, sep)
+    table = _read_text_arrow(text, utf8, sep)
     if table is None:
-        table = _read_text_pandas(text, sep, name)
+        return _read_text_pandas(text, sep, name), sep == ";"
     return table, sep == ";"
 
 
-def _read_text_arrow(text: str, sep: str) -> pd.DataFrame | None:
-    """Fast path (pyarrow's multi-threaded reader); ``None`` to fall back to pandas."""
+def _read_text_arrow(text: str, utf8: bytes | None, sep: str) -> _Cells | None:
+    """Fast path (pyarrow's multi-threaded reader); ``None`` to fall back to pandas.
+
+    Cells are stripped by pyarrow's ``utf8_trim_whitespace``, which is what
+    pandas' ``str.strip`` runs on pyarrow-backed strings.
+    """
     try:
         import pyarrow as pa
+        import pyarrow.compute as pc
         import pyarrow.csv as pacsv
     except ImportError:
         return None
@@ -163,7 +182,7 @@ def _read_text_arrow(text: str, sep: str) -> pd.DataFrame | None:
     names = [f"f{i}" for i in range(len(header))]
     try:
         table = pacsv.read_csv(
-            io.BytesIO(text.encode("utf-8")),
+            io.BytesIO(utf8 if utf8 is not None else text.encode("utf-8")),
             read_options=pacsv.ReadOptions(column_names=names),
             parse_options=pacsv.ParseOptions(delimiter=sep, newlines_in_values=True),
             convert_options=pacsv.ConvertOptions(
@@ -174,9 +193,12 @@ def _read_text_arrow(text: str, sep: str) -> pd.DataFrame | None:
         )
     except (pa.ArrowInvalid, pa.ArrowTypeError):
         return None  # ragged rows etc.: pandas gives the message with a line number
-    frame = table.to_pandas()
-    frame.columns = range(frame.shape[1])
-    return frame
+    if table.num_rows < 1:
+        return None
+    first = [str(v) for v in table.slice(0, 1).to_pylist()[0].values()]
+    body = table.slice(1)
+    body = pa.table({n: pc.utf8_trim_whitespace(body[n]) for n in body.column_names})
+    return _Cells(first, body.to_pandas())
 
 
 def _read_text_pandas(text: str, sep: str, name: str) -> pd.DataFrame:
@@ -265,15 +287,15 @@ def _cell_text(v: object) -> str:
 
 
 def _name_columns(
-    body: pd.DataFrame, header: list[str], name: str, notes: list[str]
+    body: pd.DataFrame, header: list[str], name: str, notes: list[str], *, stripped: bool = False
 ) -> tuple[pd.DataFrame, dict[str, str]]:
-    """Strip every cell, map headers to canonical names, reject clashes."""
+    """Strip every cell (unless ``stripped``), map headers to canonical names, reject clashes."""
     errors: list[InputError] = []
     columns: dict[str, pd.Series] = {}
     headers: dict[str, str] = {}
     reserved = set(RESERVED)
     for j, raw_name in enumerate(header):
-        values = body[j].astype(str).str.strip()
+        values = body[j] if stripped else body[j].astype(str).str.strip()
         if raw_name == "":
             if not (values != "").any():
                 continue  # trailing delimiter: an unnamed, empty column
