@@ -207,7 +207,7 @@ def read_samples(
         ref = frame["is_reference"].to_numpy(dtype=bool)
         references = frame.loc[ref & ~excluded, REFERENCE_COLUMNS].reset_index(drop=True)
         keep = ~ref & ~excluded
-        samples, notes, flags = combine_replicates(frame[keep] if not keep.all() else frame)
+        samples, notes, flags = combine_replicates(frame, keep=keep)
         for keys, reason in notes:
             ledger.note(keys, reason)
         for keys, reason in flags:

@@ -89,8 +89,10 @@ def find_duplicates(frame: pd.DataFrame) -> tuple[list[InputError], np.ndarray]:
     duplicate_keys
         Keys of later exact copies, to be excluded.
     """
-    cand = frame[(frame["sample_id"] != "") & ~frame["is_reference"]]
-    sub = cand[cand["sample_id"].duplicated(keep=False)]
+    sid = frame["sample_id"]
+    cand = np.flatnonzero(((sid != "") & ~frame["is_reference"]).to_numpy(dtype=bool))
+    # only the rows whose sample_id repeats are taken out of the (large) table
+    sub = frame.iloc[cand[sid.iloc[cand].duplicated(keep=False).to_numpy()]]
     if sub.empty:
         return [], np.array([], dtype=np.int64)
     cols = [c for c in CONFLICT_COLUMNS if c in sub.columns]
@@ -138,7 +140,7 @@ def _same(a: object, b: object) -> bool:
 
 
 def combine_replicates(
-    rows: pd.DataFrame,
+    rows: pd.DataFrame, *, keep: np.ndarray | None = None
 ) -> tuple[pd.DataFrame, list[tuple[np.ndarray, str]], list[tuple[np.ndarray, str]]]:
     """Combine replicate analyses into one sample each.
 
@@ -146,6 +148,9 @@ def combine_replicates(
     ----------
     rows
         Typed, non-excluded sample rows (no reference material), in key order.
+    keep
+        Boolean mask: combine only these rows (as ``rows[keep]``, without
+        copying the whole table first). Default: every row.
 
     Returns
     -------
@@ -158,10 +163,14 @@ def combine_replicates(
     flags
         ``(keys, reason)`` ledger flags.
     """
-    n = len(rows)
-    gid = _replicate_groups(rows)
+    pos = np.arange(len(rows)) if keep is None else np.flatnonzero(keep)
+    n = pos.size
+    gid = _replicate_groups(rows, pos)
     first = ~pd.Series(gid).duplicated().to_numpy() if n else np.zeros(0, bool)
-    out = rows[first].reset_index(drop=True) if not first.all() else rows.reset_index(drop=True)
+    if first.all() and n == len(rows):
+        out = rows.reset_index(drop=True)
+    else:
+        out = rows.iloc[pos[first]].reset_index(drop=True)  # one copy of the kept rows
     out_g = gid[first]
     keys = out["key"].to_numpy()
     out["keys"] = pd.Series(list(zip(keys.tolist(), strict=True)), dtype=object)
@@ -173,7 +182,8 @@ def combine_replicates(
 
     sizes = np.bincount(gid)
     multi = sizes[gid] > 1
-    sub = rows[multi]
+    cols = ["key", "d15N", "d13C", "sd_d15N", "sd_d13C", *_MEANED]
+    sub = rows[cols].iloc[pos[multi]]
     g = gid[multi]
     at = np.flatnonzero(sizes[out_g] > 1)  # output rows that are combined
     ids = out_g[at]
@@ -224,10 +234,17 @@ def _key_tuples(keys: np.ndarray, g: np.ndarray) -> pd.Series:
     return pd.Series(tuples, index=ids, dtype=object)
 
 
-def _replicate_groups(rows: pd.DataFrame) -> np.ndarray:
-    """Integer id of each row's replicate set (individual, tissue, time, lipid state)."""
-    if rows.empty:
+def _replicate_groups(rows: pd.DataFrame, pos: np.ndarray) -> np.ndarray:
+    """Integer id of each row's replicate set (individual, tissue, time, lipid state).
+
+    Only the rows at positions ``pos`` are grouped.
+    """
+    if not pos.size:
         return np.zeros(0, dtype=np.int64)
+    cols = ["individual", "tissue", "tissue_class", "position_mm", "collected", "date"]
+    rows = rows[cols + ["lipid_extracted"]]
+    if pos.size != len(rows):
+        rows = rows.iloc[pos]
     ker = (rows["tissue_class"] == "keratin").to_numpy()
     keys = pd.DataFrame(
         {

@@ -165,6 +165,11 @@ def _missing(s: pd.Series) -> np.ndarray:
     return s.isin(_MISSING_FORMS).to_numpy()
 
 
+def _where(s: pd.Series, cond: np.ndarray, other: object) -> pd.Series:
+    """``s.where(cond, other)``, without its pass over the column when ``cond`` holds everywhere."""
+    return s if cond.all() else s.where(cond, other)
+
+
 def _take(values: list[object], codes: np.ndarray, dtype: str) -> pd.Series:
     """Expand one value per distinct input back to every row (fast ``take``)."""
     return pd.Series(values, dtype=dtype).take(codes).reset_index(drop=True)
@@ -214,7 +219,7 @@ def check_table(raw: RawTable, tissues: dict[str, Tissue], default_sd: float, ke
         notes.append(f"{raw.path}: no {no_iso[0]} column; {no_iso[0]} treated as empty")
         marks.append(("note", np.ones(n, bool), f"no {no_iso[0]} column in file"))
 
-    text = {c: col(c).where(~miss[c], "") for c in TEXT}
+    text = {c: _where(col(c), ~miss[c], "") for c in TEXT}
     is_ref = (text["reference_material"] != "").to_numpy()
     both_empty = miss["d15N"] & miss["d13C"]
     all_empty = (f == "").all(axis=1).to_numpy() if len(f.columns) else np.ones(n, bool)
@@ -295,7 +300,7 @@ def check_table(raw: RawTable, tissues: dict[str, Tissue], default_sd: float, ke
 
     for c in ("sd_d15N", "sd_d13C"):
         nums[c] = np.where(np.isnan(nums[c]), default_sd, nums[c])
-    group = text["group"].where(text["group"] != "", "all")
+    group = _where(text["group"], (text["group"] != "").to_numpy(), "all")
     out = pd.DataFrame(
         {
             "key": np.arange(key0, key0 + n, dtype=np.int64),
@@ -322,7 +327,7 @@ def check_table(raw: RawTable, tissues: dict[str, Tissue], default_sd: float, ke
         "source_file": out["source_file"],
         "source_row": out["source_row"],
         "individual": out["individual"],
-        "tissue": tissue.where(~t_empty, col("tissue")),
+        "tissue": _where(tissue, ~t_empty, col("tissue")),
     }
     led.update({c: f[c] for c in f.columns if c not in ("individual", "tissue")})
     ledger_frame = pd.DataFrame(led)
@@ -348,7 +353,7 @@ def _numbers(
     t = s.str.replace(",", ".", regex=False) if decimal_comma else s
     if t.str.contains("\u2212", regex=False).any():  # typographic minus from word processors
         t = t.str.replace("\u2212", "-", regex=False)
-    t = t.where(~miss)
+    t = _where(t, ~miss, np.nan)
     x = _fast_floats(t)
     if x is None:
         parsed = pd.to_numeric(t, errors="coerce")
