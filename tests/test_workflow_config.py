@@ -289,3 +289,24 @@ def test_demo_runs_the_demo_workflow_with_command_line_overrides(monkeypatch, tm
 def test_demo_rejects_a_bad_override(capsys):
     assert main(["demo", "--draws", "0"]) == 2
     assert "key 'sampler.draws': expected a value >= 1, got 0" in capsys.readouterr().err
+
+
+def test_table_units_are_named_after_their_files(folder):
+    (folder / "data" / "second.csv").write_text(TABLE.replace("A1", "C1"))
+    path = folder / "wf.toml"
+    path.write_text(
+        '[inputs]\ntables = ["data/colony.csv", "data/second.csv"]\n[units]\nsplit = "table"\n'
+    )
+    units = plan_units(load_workflow(path), ["north", "south"])
+    assert [(u.name, u.group, len(u.tables)) for u in units] == [
+        ("colony", None, 1),
+        ("second", None, 1),
+    ]
+
+
+def test_bad_execution_options_exit_2(folder, capsys):
+    path = write(folder, "")
+    assert main(["run", str(path), "--workers", "-1"]) == 2
+    assert "--workers must be at least 0" in capsys.readouterr().err
+    assert main(["run", str(path), "--local-cluster", "0"]) == 2
+    assert "--local-cluster must be at least 1" in capsys.readouterr().err

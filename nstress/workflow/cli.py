@@ -544,10 +544,10 @@ def _execute(wf: Any, args: argparse.Namespace, out: Path | None) -> int:
     """Run a loaded workflow with the command line's execution options."""
     from nstress.workflow.run import run_workflow
 
-    for name in ("local_cluster", "workers"):
+    for name, low in (("local_cluster", 1), ("workers", 0)):
         value = getattr(args, name, None)
-        if value is not None and value < (1 if name == "local_cluster" else 0):
-            raise NstressError(f"--{name.replace('_', '-')} must be at least 1")
+        if value is not None and value < low:
+            raise NstressError(f"--{name.replace('_', '-')} must be at least {low}")
     outcome = run_workflow(
         wf,
         out=out,

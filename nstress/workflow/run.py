@@ -33,6 +33,7 @@ import os
 import re
 import time
 import traceback
+import uuid
 import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -470,7 +471,8 @@ def _run_dask(
             board.log(f"submitting {len(jobs)} unit(s) to the Dask scheduler at {address}")
         futures = {}
         for job in jobs:
-            fut = client.submit(execute_unit, job, key=f"nstress-{job['dirname']}", pure=False)
+            key = f"nstress-{job['dirname']}-{uuid.uuid4().hex[:8]}"  # never shared by runs
+            fut = client.submit(execute_unit, job, key=key, pure=False)
             futures[fut] = job
             board.start(job["unit"])
         results = []
