@@ -12,7 +12,7 @@ import pytest
 from nstress._chem_equations import two_point_normalise
 from nstress.intake.ledger import Ledger
 from nstress.prep import prepare
-from nstress.prep.qc import RowKeys, ledger_keys
+from nstress.prep.qc import RowKeys, ledger_keys, text, tissue_names
 
 
 def _samples(rng: np.random.Generator, n: int) -> pd.DataFrame:
@@ -147,5 +147,37 @@ def test_many_interleaved_batches_each_normalised_by_its_own_anchors():
     assert all(c["n_samples"] == 20 for c in cals)
     # every reference row is noted as an anchor of its batch
     ref_reasons = led.loc[r["key"].to_numpy(), "reason"].tolist()
-    for b, text in zip(r["analysis_batch"], ref_reasons, strict=True):
-        assert f"reference material: δ15N anchor (batch {b})" in text
+    for b, why in zip(r["analysis_batch"], ref_reasons, strict=True):
+        assert f"reference material: δ15N anchor (batch {b})" in why
+
+
+def test_text_helpers_same_on_string_and_object_columns():
+    values = [" Whisker", "plasma ", None, "RBC", " Whisker", "", "rbc", np.nan, "Plasma"]
+    as_str = pd.DataFrame({"tissue": pd.Series(values, dtype="str"), "b": pd.Series(values)})
+    as_obj = as_str.astype(object)
+    assert isinstance(as_str["tissue"].dtype, pd.StringDtype)
+    for frame in (as_str, as_obj):
+        assert tissue_names(frame).tolist() == [
+            "whisker",
+            "plasma",
+            "",
+            "rbc",
+            "whisker",
+            "",
+            "rbc",
+            "",
+            "plasma",
+        ]
+    assert text(as_str, "tissue").tolist() == text(as_obj, "tissue").tolist()
+    assert text(as_str, "tissue").tolist()[:4] == ["Whisker", "plasma", "", "RBC"]
+
+
+def test_row_keys_by_positions_equal_by_mask():
+    rng = np.random.default_rng(5)
+    s = _samples(rng, 50)
+    rk = RowKeys(s)
+    rows = np.array([3, 7, 8, 20, 49])
+    mask = np.zeros(50, bool)
+    mask[rows] = True
+    assert np.array_equal(rk.of_rows(rows), rk.of(mask))
+    assert rk.of_rows(np.array([], dtype=np.int64)).size == 0

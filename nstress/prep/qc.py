@@ -76,20 +76,31 @@ def numeric(frame: pd.DataFrame, column: str) -> np.ndarray:
     return pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
 
 
+def _by_distinct(s: pd.Series, func: Callable[[pd.Series], pd.Series]) -> np.ndarray:
+    """``func(s)`` as an object array, for an elementwise ``func``.
+
+    On a text column ``func`` runs once per distinct value, not once per row.
+    """
+    if isinstance(s.dtype, pd.StringDtype):
+        codes, uniq = pd.factorize(s, use_na_sentinel=False)
+        return func(pd.Series(uniq, dtype=s.dtype)).to_numpy(dtype=object)[codes]
+    return func(s).to_numpy(dtype=object)
+
+
 def text(frame: pd.DataFrame, column: str) -> np.ndarray:
     """Return ``column`` as stripped text (``""`` where absent or missing), as an object array."""
     if column not in frame.columns:
         return np.full(len(frame), "", dtype=object)
-    s = frame[column].astype("string").fillna("").str.strip()
-    return s.to_numpy(dtype=object)
+    return _by_distinct(frame[column], lambda s: s.astype("string").fillna("").str.strip())
 
 
 def tissue_names(samples: pd.DataFrame) -> np.ndarray:
     """Return the lower-case tissue name of each row."""
     if "tissue" not in samples.columns:
         return np.full(len(samples), "", dtype=object)
-    s = samples["tissue"].astype("string").fillna("").str.strip().str.lower()
-    return s.to_numpy(dtype=object)
+    return _by_distinct(
+        samples["tissue"], lambda s: s.astype("string").fillna("").str.strip().str.lower()
+    )
 
 
 def _flat_keys(vals: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -170,7 +181,21 @@ class RowKeys:
         numpy.ndarray
             int64 keys.
         """
-        rows = np.flatnonzero(np.asarray(mask, dtype=bool))
+        return self.of_rows(np.flatnonzero(np.asarray(mask, dtype=bool)))
+
+    def of_rows(self, rows: np.ndarray) -> np.ndarray:
+        """Return the sorted distinct ledger keys behind the sample rows at positions ``rows``.
+
+        Parameters
+        ----------
+        rows
+            Integer positions of sample rows.
+
+        Returns
+        -------
+        numpy.ndarray
+            int64 keys.
+        """
         count = self._count[rows]
         total = int(count.sum())
         if total == 0:

@@ -279,7 +279,7 @@ def normalise_scale(
     rc = _RefColumns(refs)
     ref_keys = numeric(refs, "key")
     ref_norm = {iso: np.full(len(refs), np.nan) for iso in ISOTOPES}
-    keys_of = row_keys.of if row_keys is not None else RowKeys(samples).of
+    keys_of = (row_keys if row_keys is not None else RowKeys(samples)).of_rows
     n = len(samples)
     measured = {iso: numeric(samples, iso) for iso in ISOTOPES}
     values = {iso: measured[iso].copy() for iso in ISOTOPES}  # batches are disjoint
@@ -326,7 +326,7 @@ def normalise_scale(
             assert anchor is not None and check is not None
             values[iso][trows] = _apply(vals[trows], fit)
             done[iso][trows] = True
-            target_keys = keys_of(rows_mask(trows))
+            target_keys = keys_of(trows)
             names = ", ".join(a["rm"] for a in fit["anchors"])
             ledger.note(
                 target_keys,
@@ -346,14 +346,15 @@ def normalise_scale(
                 )
             lo, hi = fit["measured_range"]
             out_rows = trows[(vals[trows] < lo) | (vals[trows] > hi)]
-            outside = rows_mask(out_rows)
-            ledger.flag(
-                keys_of(outside),
-                one_reason(
-                    f"{LABEL[iso]} outside the anchor range ({names}, batch {batch}): extrapolated"
-                ),
-            )
-            qc.add(outside, f"{LABEL[iso]} outside the anchor range")
+            if out_rows.size:
+                ledger.flag(
+                    keys_of(out_rows),
+                    one_reason(
+                        f"{LABEL[iso]} outside the anchor range ({names}, batch {batch}): "
+                        "extrapolated"
+                    ),
+                )
+                qc.add(rows_mask(out_rows), f"{LABEL[iso]} outside the anchor range")
             residuals = _residuals(rc, rrows[check], iso, fit)
             entry = {k: v for k, v in fit.items() if not k.startswith("_")}
             entry.update(
@@ -392,7 +393,7 @@ def normalise_scale(
             for batch, trows in missing[iso]:
                 target = rows_mask(trows)
                 ledger.flag(
-                    keys_of(target),
+                    keys_of(trows),
                     one_reason(
                         f"{LABEL[iso]} not scale-normalised in batch {batch} "
                         "while other batches were"
