@@ -278,6 +278,7 @@ def child_steps(table: Path) -> dict:
 
     rec: dict = {"import_s": time.perf_counter() - t0, "rss_after_import_mb": _max_rss_mb()}
     inner = {"read": 0.0, "validate": 0.0}
+    cpu: dict[str, float] = {}  # CPU time of the process (all threads): less noisy when shared
 
     def timed(name, func):
         def wrapper(*a, **k):
@@ -293,27 +294,32 @@ def child_steps(table: Path) -> dict:
     read_mod.check_table = timed("validate", read_mod.check_table)
     with RSSSampler() as mem:
         with mem.step("read_samples"):
-            t = time.perf_counter()
+            t, c = time.perf_counter(), time.process_time()
             intake = read_samples(str(table))
             rec["read_samples"] = time.perf_counter() - t
+            cpu["read_samples"] = time.process_time() - c
         rec["read"], rec["validate"] = inner["read"], inner["validate"]
         rec["ledger_replicates"] = rec["read_samples"] - rec["read"] - rec["validate"]
         with mem.step("prepare"):
-            t = time.perf_counter()
+            t, c = time.perf_counter(), time.process_time()
             prepared = prepare(intake, tissues=intake.tissues)
             rec["prepare"] = time.perf_counter() - t
+            cpu["prepare"] = time.process_time() - c
         rec["intake_prep"] = rec["read_samples"] + rec["prepare"]
+        cpu["intake_prep"] = cpu["read_samples"] + cpu["prepare"]
         rec["rss_intake_prep_mb"] = _max_rss_mb()
         with mem.step("ledger_frame"):
             t = time.perf_counter()
             frame = prepared.ledger.to_frame()
             rec["ledger_frame"] = time.perf_counter() - t
         with mem.step("timebase"):
-            t = time.perf_counter()
+            t, c = time.perf_counter(), time.process_time()
             used = prepared.samples
             used = used[~used["key"].isin(prepared.ledger.excluded_keys())]
             tb = build_timebase(used, prepared.tissues)
             rec["timebase"] = time.perf_counter() - t
+            cpu["timebase"] = time.process_time() - c
+    rec["cpu_s"] = cpu
     rec["rss_peak_mb"] = _max_rss_mb()
     rec["rss_by_step_mb"] = mem.peaks
     status = frame["status"].value_counts()
@@ -406,6 +412,7 @@ def main(argv: list[str] | None = None) -> int:
             checks.append(_run_child("check", table))
             clis.append(_run_cli(table))
     steps = {s: _stats([r[s] for r in runs]) for s in STEPS}
+    cpu = {s: _stats([r["cpu_s"][s] for r in runs]) for s in runs[0]["cpu_s"]}
     if checks:
         steps["check"] = _stats([c["check"] for c in checks])
         steps["check_cli"] = _stats([c["check_cli"] for c in clis])
@@ -427,6 +434,8 @@ def main(argv: list[str] | None = None) -> int:
         "status": runs[0]["status"],
         "repeat": a.repeat,
         "seconds": steps,
+        "cpu_seconds": cpu,
+        "load_average": os.getloadavg(),
         "peak_memory": peak,
         "check_exit_codes": [c["exit_code"] for c in checks],
         "machine": {"cpus": os.cpu_count(), "python": platform.python_version()},
@@ -437,9 +446,11 @@ def main(argv: list[str] | None = None) -> int:
     path.write_text(json.dumps(result, indent=2))
     print(f"{result['rows']} rows, {result['samples']} samples, {result['individuals']} animals")
     print(f"rows by status: {result['status']}")
-    print(f"{'step':<20}{'best s':>10}{'median s':>10}")
+    print(f"{'step':<20}{'best s':>10}{'median s':>10}{'cpu best s':>12}")
     for s, v in steps.items():
-        print(f"{s:<20}{v['best']:>10.2f}{v['median']:>10.2f}")
+        c = f"{cpu[s]['best']:>12.2f}" if s in cpu else ""
+        print(f"{s:<20}{v['best']:>10.2f}{v['median']:>10.2f}{c}")
+    print(f"load average at the end: {', '.join(f'{x:.1f}' for x in os.getloadavg())}")
     print(
         f"peak RSS: intake+prep {peak['intake_prep_max_rss_mb']:.0f} MB, "
         f"with timebase {peak['with_timebase_max_rss_mb']:.0f} MB, "
