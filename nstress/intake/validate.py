@@ -170,6 +170,27 @@ def _where(s: pd.Series, cond: np.ndarray, other: object) -> pd.Series:
     return s if cond.all() else s.where(cond, other)
 
 
+def _blank_missing(s: pd.Series, miss: np.ndarray) -> pd.Series:
+    """``s.where(~miss, "")``: skipped when every missing cell is ``""`` already."""
+    if not miss.any() or not (miss & (s != "").to_numpy(dtype=bool)).any():
+        return s
+    return s.where(~miss, "")
+
+
+def _all_empty(f: pd.DataFrame) -> np.ndarray:
+    """Rows whose every cell is ``""``: each column is compared on the rows still in question."""
+    n = len(f)
+    rows = np.arange(n)
+    for c in f.columns:
+        if rows.size == 0:
+            break
+        v = f[c] if rows.size == n else f[c].iloc[rows]
+        rows = rows[(v == "").to_numpy(dtype=bool)]
+    out = np.zeros(n, dtype=bool)
+    out[rows] = True
+    return out
+
+
 def _take(values: list[object], codes: np.ndarray, dtype: str) -> pd.Series:
     """Expand one value per distinct input back to every row (fast ``take``)."""
     return pd.Series(values, dtype=dtype).take(codes).reset_index(drop=True)
@@ -219,10 +240,10 @@ def check_table(raw: RawTable, tissues: dict[str, Tissue], default_sd: float, ke
         notes.append(f"{raw.path}: no {no_iso[0]} column; {no_iso[0]} treated as empty")
         marks.append(("note", np.ones(n, bool), f"no {no_iso[0]} column in file"))
 
-    text = {c: _where(col(c), ~miss[c], "") for c in TEXT}
+    text = {c: _blank_missing(col(c), miss[c]) for c in TEXT}
     is_ref = (text["reference_material"] != "").to_numpy()
     both_empty = miss["d15N"] & miss["d13C"]
-    all_empty = (f == "").all(axis=1).to_numpy() if len(f.columns) else np.ones(n, bool)
+    all_empty = _all_empty(f)
     marks.append(("exclude", all_empty, EMPTY_ROW))
     marks.append(("exclude", both_empty & ~all_empty, NO_ISOTOPES))
     if n and both_empty.all() and len(no_iso) < 2:
@@ -353,10 +374,9 @@ def _numbers(
     t = s.str.replace(",", ".", regex=False) if decimal_comma else s
     if t.str.contains("\u2212", regex=False).any():  # typographic minus from word processors
         t = t.str.replace("\u2212", "-", regex=False)
-    t = _where(t, ~miss, np.nan)
-    x = _fast_floats(t)
+    x = _fast_floats(t, miss)
     if x is None:
-        parsed = pd.to_numeric(t, errors="coerce")
+        parsed = pd.to_numeric(_where(t, ~miss, np.nan), errors="coerce")
         x = parsed.to_numpy(dtype=float, na_value=np.nan, copy=True)
     bad = ~miss & ~np.isfinite(x)
     if bad.any():
@@ -375,15 +395,21 @@ def _numbers(
     return x
 
 
-def _fast_floats(t: pd.Series) -> np.ndarray | None:
-    """Parse with pyarrow when every value is a valid number; ``None`` otherwise."""
+def _fast_floats(t: pd.Series, miss: np.ndarray) -> np.ndarray | None:
+    """Parse with pyarrow when every value not ``miss`` is a valid number; ``None`` otherwise.
+
+    Missing cells become NaN (nulls in pyarrow, not a pandas pass over the column).
+    """
     try:
         import pyarrow as pa
         import pyarrow.compute as pc
     except ImportError:
         return None
     try:
-        arr = pc.cast(pa.array(t, from_pandas=True), pa.float64())
+        arr = pa.array(t, from_pandas=True)
+        if miss.any():
+            arr = pc.if_else(pa.array(~miss), arr, pa.scalar(None, type=arr.type))
+        arr = pc.cast(arr, pa.float64())
     except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError):
         return None
     return np.array(arr.to_numpy(zero_copy_only=False), dtype=float)

@@ -201,7 +201,10 @@ class RowKeys:
         if total == 0:
             return np.empty(0, dtype=np.int64)
         pos = np.repeat(self._start[rows] - (np.cumsum(count) - count), count) + np.arange(total)
-        return np.unique(self._keys[pos])
+        keys = self._keys[pos]
+        if (keys[1:] > keys[:-1]).all():  # already sorted and distinct (the usual case)
+            return keys
+        return np.unique(keys)
 
 
 def _keys_of(samples: pd.DataFrame, row_keys: RowKeys | None) -> Callable[[np.ndarray], np.ndarray]:
