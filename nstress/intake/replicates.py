@@ -91,8 +91,11 @@ def find_duplicates(frame: pd.DataFrame) -> tuple[list[InputError], np.ndarray]:
     """
     sid = frame["sample_id"]
     cand = np.flatnonzero(((sid != "") & ~frame["is_reference"]).to_numpy(dtype=bool))
-    # only the rows whose sample_id repeats are taken out of the (large) table
-    sub = frame.iloc[cand[sid.iloc[cand].duplicated(keep=False).to_numpy()]]
+    # as sid.iloc[cand].duplicated(keep=False), by counting codes; only the rows whose
+    # sample_id repeats are then taken out of the (large) table
+    codes = pd.factorize(sid)[0][cand]
+    repeats = np.bincount(codes)[codes] > 1 if codes.size else np.zeros(0, dtype=bool)
+    sub = frame.iloc[cand[repeats]]
     if sub.empty:
         return [], np.array([], dtype=np.int64)
     cols = [c for c in CONFLICT_COLUMNS if c in sub.columns]
