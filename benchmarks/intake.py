@@ -363,6 +363,7 @@ def _run_cli(table: Path) -> dict:
             capture_output=True,
             text=True,
             check=False,
+            cwd=out,  # not the checkout: `-m` would import nstress from the working directory
         )
         return {"check_cli": time.perf_counter() - t, "exit_code": res.returncode}
 

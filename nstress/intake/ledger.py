@@ -21,6 +21,15 @@ _RANK = {USED: 0, FLAGGED: 1, EXCLUDED: 2}
 LEDGER_COLUMNS = ["source_file", "source_row", "individual", "tissue", "status", "reason"]
 
 
+_COPY_ON_WRITE = int(pd.__version__.split(".")[0]) >= 3
+"""pandas 3 always copies on write: a shallow copy is then as private as a deep one."""
+
+
+def _private_copy(frame: pd.DataFrame) -> pd.DataFrame:
+    """Return a copy that in-place changes of either frame cannot reach (shallow under CoW)."""
+    return frame.copy(deep=not _COPY_ON_WRITE)
+
+
 class Ledger:
     """Row accounting for one or more input tables.
 
@@ -33,7 +42,7 @@ class Ledger:
     """
 
     def __init__(self, frame: pd.DataFrame) -> None:
-        self._frame = frame.copy(deep=False)  # copy-on-write keeps it safe from the caller
+        self._frame = _private_copy(frame)
         n = len(self._frame)
         self._status = np.zeros(n, dtype=np.int8)
         self._events: list[tuple[np.ndarray, str]] = []
@@ -82,7 +91,7 @@ class Ledger:
 
     def to_frame(self) -> pd.DataFrame:
         """Return the ledger table (contract columns first, extra columns after)."""
-        out = self._frame.copy(deep=False)  # copy-on-write: the carried columns are not copied
+        out = _private_copy(self._frame)
         names = np.array([USED, FLAGGED, EXCLUDED])
         out["status"] = names[self._status]
         out["reason"] = self._reason_strings()
