@@ -80,6 +80,8 @@ ISO_DATE = (
     r"(?:[T ](?:[01]\d|2[0-3]):[0-5]\d(?::[0-5]\d(?:[.,]\d+)?)?"
     r"(?:Z|[+-](?:[01]\d|2[0-3]):?[0-5]\d)?)?"
 )
+_FIRST_DAY = pd.Timestamp("1700-01-01")  # inside what a nanosecond timestamp holds
+_LAST_DAY = pd.Timestamp("2200-12-31")
 EMPTY_ROW = "empty row"
 NO_ISOTOPES = "no d15N or d13C value"
 FUTURE_DATE = "date in the future"
@@ -434,8 +436,20 @@ def _dates(s: pd.Series, miss: np.ndarray, c: str, raw: pd.Series, err: _Errors)
         else:
             msg = "expected an ISO 8601 date (YYYY-MM-DD)"
         err.rows(other, c, raw, msg)
+    u_ok = (u_day >= _FIRST_DAY) & (u_day <= _LAST_DAY)  # NaT compares False
+    u_far = u_day.notna().to_numpy() & ~u_ok.to_numpy()
+    far = u_far[codes] & ~miss
+    err.rows(
+        far,
+        c,
+        raw,
+        f"date out of range; expected a date from {_FIRST_DAY:%Y-%m-%d} to {_LAST_DAY:%Y-%m-%d}",
+    )
+    u_day = u_day.where(u_ok)
     d = u_day.where(pd.Series(u_iso)).astype("datetime64[ns]").take(codes).reset_index(drop=True)
-    err.rows(iso & d.isna().to_numpy(), c, raw, "impossible date; expected a real calendar date")
+    err.rows(
+        iso & ~far & d.isna().to_numpy(), c, raw, "impossible date; expected a real calendar date"
+    )
     d.index = s.index
     return d.where(~miss)
 

@@ -521,7 +521,7 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
         sha256=sha256,
         name=wf.get("name", path.stem),
         title=wf.get("title"),
-        tables=resolve_inputs(doc["inputs"]["tables"], base, file),
+        tables=resolve_inputs(_as_list(doc["inputs"]["tables"]), base, file),
         split=doc.get("units", {}).get("split", "group"),
         fit=fit,
         execution=Execution(
@@ -535,6 +535,11 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
         unit_reports=fit.report,
         document=doc,
     )
+
+
+def _as_list(value: str | list[str]) -> list[str]:
+    """One path or pattern as a list of one (``tables = "a.csv"``), an array as it is."""
+    return [value] if isinstance(value, str) else list(value)
 
 
 def _reject_non_finite(value: Any, key: str, file: str) -> None:
