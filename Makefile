@@ -15,8 +15,9 @@ $(STAMP): pyproject.toml
 
 install: $(STAMP)
 
+# DEMO_ARGS passes options through, e.g. make demo DEMO_ARGS="--draws 200 --tune 200"
 demo: $(STAMP)
-	$(BIN)/nstress demo --out demo_run
+	$(BIN)/nstress demo --out demo_run $(DEMO_ARGS)
 
 test: $(STAMP)
 	$(BIN)/python -m pytest -q
