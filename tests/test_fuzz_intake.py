@@ -18,6 +18,7 @@ dropped without a ledger entry. The same holds for ``prepare`` and
 from __future__ import annotations
 
 import csv
+import datetime
 import io
 import tempfile
 from pathlib import Path
@@ -132,6 +133,27 @@ def _cell(name: str) -> st.SearchStrategy[str]:
     return CELLS.get(name, _numeric_cell)
 
 
+_valid_date = st.tuples(
+    st.dates(datetime.date(2015, 1, 1), datetime.date(2023, 12, 31)),
+    st.sampled_from(["", "T08:15", " 23:00:00Z", "T10:00+01:00"]),
+).map(lambda t: t[0].isoformat() + t[1])
+VALID = {
+    "individual": st.sampled_from(["A", "B", "C"]),
+    "tissue": st.sampled_from(["whisker", "plasma", "rbc", "Whole Blood"]),
+    "group": st.sampled_from(["north", "south", ""]),
+    "sample_id": st.just(""),
+    "collected": _valid_date,
+    "date": _valid_date,
+    "lipid_extracted": st.sampled_from(["true", "false", ""]),
+    "d13C": st.floats(-30, -10).map(lambda x: f"{x:.2f}"),
+}
+_valid_number = st.floats(0.1, 30).map(lambda x: f"{x:.2f}")
+
+
+def _valid(name: str) -> st.SearchStrategy[str]:
+    return VALID.get(name, _valid_number)
+
+
 @st.composite
 def tables(draw: st.DrawFn) -> tuple[list[str], list[list[str]], str, str, str]:
     """Header, rows, delimiter, line ending and encoding of one generated file."""
@@ -143,9 +165,18 @@ def tables(draw: st.DrawFn) -> tuple[list[str], list[list[str]], str, str, str]:
         cols = [("d15N", "d15N")]
     cols = draw(st.permutations(cols))
     n_rows = draw(st.integers(1, 12))
+    bad_rate = draw(st.sampled_from([0.0, 0.0, 0.02, 0.1, 0.3, 1.0]))
     rows = []
     for _ in range(n_rows):
-        rows.append([draw(_cell(c) if c else st.one_of(_text, _long)) for c, _ in cols])
+        row = []
+        for c, _ in cols:
+            if c is None:
+                row.append(draw(st.one_of(_text, _long)))
+            elif draw(st.floats(0, 1)) < bad_rate:
+                row.append(draw(_cell(c)))
+            else:
+                row.append(draw(_valid(c)))
+        rows.append(row)
     sep = draw(st.sampled_from([",", ";", "\t"]))
     eol = draw(st.sampled_from(["\n", "\r\n"]))
     enc = draw(st.sampled_from(["utf-8", "utf-8-sig", "latin-1", "utf-16"]))

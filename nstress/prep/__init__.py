@@ -49,6 +49,7 @@ DEFAULT_CONFIG: dict[str, Any] = {
     "cn_tolerance": 0.05,
     "check_tolerance": 0.3,
     "stretch_tolerance": 0.1,
+    "max_span_days": 1827.0,
 }
 """Defaults of the preparation settings (see :func:`prepare` for their meaning)."""
 
@@ -155,7 +156,7 @@ def resolve_config(
         raise ConfigError(f"expected one of {list(MODES)}", key="scale_normalisation")
     if not isinstance(cfg["cn_check"], bool):
         raise ConfigError("expected true or false", key="cn_check")
-    for key in ("cn_tolerance", "check_tolerance", "stretch_tolerance"):
+    for key in ("cn_tolerance", "check_tolerance", "stretch_tolerance", "max_span_days"):
         v = cfg[key]
         if isinstance(v, bool) or not isinstance(v, int | float) or not v > 0:
             raise ConfigError(f"expected a positive number, got {v!r}", key=key)
@@ -201,6 +202,13 @@ def prepare(
             Check-standard |mean residual| (‰) that flags a batch (default 0.3).
         ``stretch_tolerance`` : float
             |slope − 1| of a normalisation line that flags a batch (default 0.1).
+        ``max_span_days`` : float
+            An individual whose sample dates (blood draws, keratin collections)
+            lie further apart than this is excluded, with the reason in the
+            ledger (default 1827, five years: a design limit, not a science
+            value). The time base pads every individual to the longest grid,
+            so one animal sampled over decades would make every animal's
+            arrays that long; give each period its own individual id instead.
 
     Returns
     -------
@@ -254,6 +262,7 @@ def prepare(
         cn_basis=cfg["lipid_cn_basis"],
         row_keys=row_keys,
     )
+    report["span"] = _exclude_long_spans(samples, ledger, row_keys, cfg["max_span_days"])
     names = tissue_names(samples)
     unknown = sorted(set(names.tolist()) - set(reg))
     for name in unknown:
@@ -272,3 +281,32 @@ def prepare(
         config=cfg,
         sources=list(getattr(intake, "sources", []) or []),
     )
+
+
+def _exclude_long_spans(
+    samples: pd.DataFrame, ledger: Ledger, row_keys: RowKeys, limit: float
+) -> dict[str, Any]:
+    """Exclude the individuals whose sample dates span more than ``limit`` days."""
+    when = pd.Series(pd.NaT, index=samples.index, dtype="datetime64[ns]")
+    for col in ("date", "collected"):
+        if col in samples.columns:
+            when = when.fillna(pd.to_datetime(samples[col], errors="coerce"))
+    ind = samples["individual"].astype(str) if "individual" in samples else None
+    if ind is None or when.isna().all():
+        return {"max_span_days": limit, "excluded_individuals": {}}
+    by = when.groupby(ind)
+    span = ((by.transform("max") - by.transform("min")).dt.days).fillna(0.0)
+    too_long = (span > limit).to_numpy()
+    out: dict[str, int] = {}
+    for name in sorted(set(ind[too_long])):
+        m = (ind == name).to_numpy()
+        days = int(span[m].iloc[0])
+        ledger.exclude(
+            row_keys.of(m),
+            one_reason(
+                f"samples of this individual span {days} days, more than qc.max_span_days = "
+                f"{limit:g}; give each period its own individual id or raise the limit"
+            ),
+        )
+        out[name] = days
+    return {"max_span_days": limit, "excluded_individuals": out}

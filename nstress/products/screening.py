@@ -13,7 +13,8 @@ Status vocabulary (nstress's own; thresholds configurable):
     The data cannot separate catabolism from a diet shift for this animal:
     too few samples (``min_samples``), samples covering too short a period
     (``min_span_days``), fewer tissues than ``min_tissues`` (default 1: one
-    tissue is enough when it has δ13C), or δ15N rose but there are too few
+    tissue is enough when it has δ13C), fewer δ15N values than
+    ``min_samples`` (δ13C alone cannot show an episode), or δ15N rose but there are too few
     δ13C values to tell its direction (``min_d13C``). (A flat δ15N still
     counts as ``clear`` when only δ13C is missing.)
 ``fit_failed``
@@ -137,10 +138,11 @@ def data_support(tb: TimeBase) -> pd.DataFrame:
     rows = []
     b, k = tb.blood, tb.keratin
     for i, name in enumerate(tb.individuals):
-        n, n_c, tis = 0, 0, set()
+        n, n_n, n_c, tis = 0, 0, 0, set()
         for o in (b, k):
             m = o.mask[i]
             n += int(m.sum())
+            n_n += int((o.y_mask[i, :, 0] & m).sum())
             n_c += int((o.y_mask[i, :, 1] & m).sum())
             tis.update(tb.tissues[j] for j in o.tissue[i][m])
         # period the samples see: draw days, and keratin growth windows at nominal growth
@@ -151,6 +153,7 @@ def data_support(tb: TimeBase) -> pd.DataFrame:
             {
                 "individual": str(name),
                 "n_samples": n,
+                "n_d15N": n_n,
                 "n_d13C": n_c,
                 "n_tissues": len(tis),
                 "span_days": float(hi.max() - lo.min()) if lo.size else 0.0,
@@ -169,6 +172,7 @@ def assign_status(
     *,
     span_days: np.ndarray | None = None,
     n_tissues: np.ndarray | None = None,
+    n_d15n: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Status and reason per animal from P(episode), data support and diagnostics.
 
@@ -185,13 +189,17 @@ def assign_status(
     span_days, n_tissues
         Period the samples cover (days) and number of tissues per animal
         (optional; not checked when absent).
+    n_d15n
+        δ15N values per animal (optional): fewer than ``min_samples`` ->
+        ``cannot_tell`` (δ15N carries the catabolic signal; δ13C alone
+        cannot show an episode).
 
     Returns
     -------
     tuple of numpy.ndarray
         Status strings and reasons. Later checks override earlier ones:
         P(episode) bands, then too few δ13C, too few tissues, too short a
-        period, too few samples, and last a failed fit.
+        period, too few δ15N values, too few samples, and last a failed fit.
     """
     r = rules or ScreeningRules()
     p = np.asarray(p, dtype=float)
@@ -220,6 +228,10 @@ def assign_status(
         short = np.asarray(span_days, dtype=float) < r.min_span_days
         status = np.where(short, "cannot_tell", status)
         reason = np.where(short, f"samples cover less than {r.min_span_days:g} days", reason)
+    if n_d15n is not None:
+        no_n = np.asarray(n_d15n) < r.min_samples
+        status = np.where(no_n, "cannot_tell", status)
+        reason = np.where(no_n, f"fewer than {r.min_samples} δ15N values", reason)
     few = np.asarray(n_samples) < r.min_samples
     status = np.where(few, "cannot_tell", status)
     reason = np.where(few, f"fewer than {r.min_samples} samples", reason)
@@ -264,6 +276,7 @@ def screening_table(
         rules,
         span_days=df["span_days"].to_numpy(),
         n_tissues=df["n_tissues"].to_numpy(),
+        n_d15n=df["n_d15N"].to_numpy(),
     )
     if not diagnostics.ok:
         df["status_reason"] = "the fit failed its diagnostics: " + "; ".join(
