@@ -27,6 +27,8 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import errno
+import fcntl
 import hashlib
 import json
 import os
@@ -41,7 +43,7 @@ from pathlib import Path
 from typing import Any
 
 from nstress import __version__
-from nstress.atomic import atomic_write, atomic_write_text
+from nstress.atomic import OutputError, atomic_write, atomic_write_text
 from nstress.errors import EXIT_FIT_FAILED, EXIT_OK, ConfigError, InputError, NstressError
 from nstress.workflow.config import Workflow
 from nstress.workflow.pipeline import FINISHED_MARK, FitConfig, config_hash, sha256_file, versions
@@ -57,6 +59,8 @@ THREAD_VARS = (
 )
 XLA_ONE_THREAD = "--xla_cpu_multi_thread_eigen=false intra_op_parallelism_threads=1"
 MERGED = ("screening.csv", "timelines.csv")
+LOCK_FILE = ".nstress-run.lock"
+WORKER_DIED = "the worker process died while fitting this unit"
 
 
 # ---------------------------------------------------------------- units
@@ -208,6 +212,123 @@ def finished_hash(unit_dir: Path) -> str | None:
         return None
 
 
+def damaged_files(unit_dir: Path) -> list[str]:
+    """Return what is wrong with a finished unit's files (empty: intact).
+
+    The files its manifest lists must exist, be non-empty, and the NetCDF
+    ones (``posterior.nc``, ``timelines.nc``) must open as HDF5 (a truncated
+    or overwritten file does not).
+
+    Parameters
+    ----------
+    unit_dir
+        A unit directory with a ``manifest.json``.
+
+    Returns
+    -------
+    list of str
+        One line per damaged or missing file.
+    """
+    try:
+        manifest = json.loads((unit_dir / FINISHED_MARK).read_text())
+        files = [str(f) for f in manifest.get("files", [])]
+    except (OSError, ValueError, AttributeError, TypeError):
+        return [f"{FINISHED_MARK} unreadable"]
+    problems = []
+    for name in files:
+        path = unit_dir / name
+        if Path(name).name != name or name == FINISHED_MARK or path.is_dir():
+            continue  # plain file names the fit wrote (figures/ is re-renderable)
+        if not path.is_file() or path.stat().st_size == 0:
+            problems.append(f"{name} missing or empty")
+        elif path.suffix == ".nc":
+            problem = _netcdf_problem(path)
+            if problem:
+                problems.append(f"{name} unreadable ({problem})")
+    return problems
+
+
+def _netcdf_problem(path: Path) -> str | None:
+    """Open ``path`` as HDF5 (what h5netcdf writes); return the error, or ``None``."""
+    try:
+        import h5py
+    except ImportError:  # pragma: no cover - h5netcdf depends on h5py
+        return None
+    try:
+        with h5py.File(path, "r") as f:
+            list(f.keys())
+    except Exception as exc:  # noqa: BLE001 - h5py raises OSError and others for damage
+        return f"{type(exc).__name__}: {exc}".splitlines()[0][:200]
+    return None
+
+
+def unlink_output(path: Path) -> None:
+    """Remove an output file if it is there; a failure is an :class:`OutputError`."""
+    try:
+        path.unlink(missing_ok=True)
+    except OSError as exc:
+        raise OutputError(f"cannot write {path.parent}: {exc.strerror or exc}") from exc
+
+
+class RunDirectoryBusy(NstressError):
+    """Another ``nstress run`` holds the run directory's lock."""
+
+    exit_code = 2
+
+
+@contextlib.contextmanager
+def run_lock(run_dir: Path) -> Iterator[Path]:
+    """Hold an exclusive lock on ``run_dir`` for the length of a run.
+
+    The lock is an ``fcntl.flock`` on ``RUN_DIR/.nstress-run.lock``, which
+    holds the owner's pid. The kernel releases it when the owner exits, even
+    when it is killed, so a lock file left behind by a dead run is stale and
+    is simply taken over; the file itself is never removed (removing it
+    would let two runs lock two different files).
+
+    Parameters
+    ----------
+    run_dir
+        The run directory (created).
+
+    Yields
+    ------
+    pathlib.Path
+        The lock file.
+
+    Raises
+    ------
+    RunDirectoryBusy
+        Another live process holds the lock ("run directory is in use by pid N").
+    OutputError
+        The directory cannot be created or written.
+    """
+    path = run_dir / LOCK_FILE
+    try:
+        run_dir.mkdir(parents=True, exist_ok=True)
+        fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
+    except OSError as exc:
+        raise OutputError(f"cannot write {run_dir}: {exc.strerror or exc}") from exc
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError as exc:
+        holder = os.pread(fd, 64, 0).decode("ascii", "replace").strip() or "unknown"
+        os.close(fd)
+        if exc.errno in (errno.EAGAIN, errno.EACCES, errno.EWOULDBLOCK):
+            raise RunDirectoryBusy(
+                f"run directory {run_dir} is in use by pid {holder}; wait for that run to "
+                f"finish, or give another directory with --out"
+            ) from None
+        raise OutputError(f"cannot lock {path}: {exc.strerror or exc}") from exc
+    try:
+        os.ftruncate(fd, 0)
+        os.pwrite(fd, f"{os.getpid()}\n".encode(), 0)
+        yield path
+    finally:
+        fcntl.flock(fd, fcntl.LOCK_UN)
+        os.close(fd)
+
+
 # ---------------------------------------------------------------- one unit (in a worker)
 
 
@@ -257,13 +378,18 @@ def execute_unit(job: dict[str, Any]) -> dict[str, Any]:
         ``seconds``. The results themselves are the files in ``out``.
     """
     out = Path(job["out"])
-    out.mkdir(parents=True, exist_ok=True)
-    clear_partial(out)
+    t0 = time.perf_counter()
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        clear_partial(out)
+        fh = open(out / UNIT_LOG, "a", encoding="utf-8")  # noqa: SIM115 - closed below
+    except OSError as exc:
+        error = f"cannot write {out}: {exc.strerror or exc}"
+        return {"unit": job["unit"], "status": "failed", "error": error, "seconds": _since(t0)}
     for var in THREAD_VARS:  # for libraries this process has not loaded yet (Dask workers)
         os.environ.setdefault(var, str(job["threads"]))
     os.environ.setdefault("XLA_FLAGS", XLA_ONE_THREAD)
-    t0 = time.perf_counter()
-    with open(out / UNIT_LOG, "a", encoding="utf-8") as fh:
+    with fh:
 
         def log(message: str) -> None:
             fh.write(f"{time.strftime('%Y-%m-%dT%H:%M:%S')} {message}\n")
@@ -412,10 +538,13 @@ def _run_inline(jobs: list[dict[str, Any]], board: Board) -> list[dict[str, Any]
 def _run_local(jobs: list[dict[str, Any]], workers: int, board: Board) -> list[dict[str, Any]]:
     import multiprocessing
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+    from concurrent.futures.process import BrokenProcessPool
 
     results = []
+    broken: list[dict[str, Any]] = []  # jobs lost when a worker died and broke the pool
+    context = multiprocessing.get_context("spawn")
     with thread_env(jobs[0]["threads"]):
-        pool = ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"))
+        pool = ProcessPoolExecutor(workers, mp_context=context)
         try:
             pending = {pool.submit(execute_unit, job): job for job in jobs}
             for job in jobs[:workers]:
@@ -425,6 +554,9 @@ def _run_local(jobs: list[dict[str, Any]], workers: int, board: Board) -> list[d
                 done, _ = wait(pending, return_when=FIRST_COMPLETED)
                 for fut in done:
                     job = pending.pop(fut)
+                    if isinstance(fut.exception(), BrokenProcessPool):
+                        broken.append(job)
+                        continue
                     results.append(_result(fut, job))
                     _report(results[-1], board)
                     if queued:
@@ -433,7 +565,28 @@ def _run_local(jobs: list[dict[str, Any]], workers: int, board: Board) -> list[d
             pool.shutdown(wait=False, cancel_futures=True)
             raise
         pool.shutdown()
+        # one dead worker fails every unit in flight: refit each alone, so that only
+        # the unit whose own worker dies is reported failed
+        for job in broken:
+            board.start(job["unit"])
+            results.append(_run_alone(job, context))
+            _report(results[-1], board)
     return results
+
+
+def _run_alone(job: dict[str, Any], context: Any) -> dict[str, Any]:
+    """Run one job in a fresh worker process; its death fails this job only."""
+    from concurrent.futures import ProcessPoolExecutor
+    from concurrent.futures.process import BrokenProcessPool
+
+    with ProcessPoolExecutor(1, mp_context=context) as pool:
+        fut = pool.submit(execute_unit, job)
+        try:
+            return fut.result()
+        except BrokenProcessPool:
+            return {"unit": job["unit"], "status": "failed", "error": WORKER_DIED, "seconds": None}
+        except Exception:  # noqa: BLE001 - reported as the unit's failure
+            return _result(fut, job)
 
 
 def _run_dask(
@@ -573,113 +726,128 @@ def run_workflow(
     cores = min(chains, threads)
     t_check = time.perf_counter() - t_start
 
-    run_dir.mkdir(parents=True, exist_ok=True)
-    (run_dir / FINISHED_MARK).unlink(missing_ok=True)  # the run is unfinished until the end
-    entries: dict[str, dict[str, Any]] = {}
-    jobs = []
-    with Board([u.name for u in units], quiet, verbose) as board:
-        where = (
-            f"Dask scheduler {scheduler}"
-            if scheduler
-            else f"a Dask LocalCluster of {local_cluster}"
-            if local_cluster
-            else "this process"
-            if n_workers == 0
-            else f"{n_workers} local worker process(es)"
-        )
-        board.log(f"run directory {run_dir}: {len(units)} unit(s) on {where}")
-        if not (scheduler or local_cluster) and max(n_workers, 1) * cores > cpus:
-            board.log(f"warning: {n_workers} worker(s) x {cores} chain(s) exceed {cpus} core(s)")
-        for unit in units:
-            cfg = unit_config(wf, unit, cores)
-            digest = unit_hash(unit, cfg)
-            unit_dir = run_dir / UNITS_DIR / unit.dirname
-            entries[unit.name] = {
-                "name": unit.name,
-                "dir": f"{UNITS_DIR}/{unit.dirname}",
-                "group": unit.group,
-                "tables": list(unit.tables),
-                "seed": unit.seed,
-                "input_hash": digest,
-            }
-            if not force and finished_hash(unit_dir) == digest:
-                entries[unit.name]["status"] = "skipped"
-                board.finish(unit.name, "skipped (finished, unchanged)")
-                board.log(f"skipping unit {unit.name}: finished, inputs and settings unchanged")
-                continue
-            jobs.append(
-                {
-                    "unit": unit.name,
-                    "dirname": unit.dirname,
-                    "tables": list(unit.tables),
-                    "out": str(unit_dir),
-                    "config": dataclasses.asdict(cfg),
-                    "threads": threads,
-                }
+    with run_lock(run_dir):  # one run at a time per directory (RunDirectoryBusy otherwise)
+        unlink_output(run_dir / FINISHED_MARK)  # the run is unfinished until the end
+        entries: dict[str, dict[str, Any]] = {}
+        jobs = []
+        with Board([u.name for u in units], quiet, verbose) as board:
+            where = (
+                f"Dask scheduler {scheduler}"
+                if scheduler
+                else f"a Dask LocalCluster of {local_cluster}"
+                if local_cluster
+                else "this process"
+                if n_workers == 0
+                else f"{n_workers} local worker process(es)"
             )
-        t0 = time.perf_counter()
-        if jobs:
-            if scheduler or local_cluster:
-                results = _run_dask(jobs, scheduler, local_cluster, board)
-            elif n_workers == 0:
-                results = _run_inline(jobs, board)
-            else:
-                results = _run_local(jobs, n_workers, board)
-            for r in results:
-                entries[r["unit"]].update(
-                    status=r["status"], seconds=r.get("seconds"), error=r.get("error")
+            board.log(f"run directory {run_dir}: {len(units)} unit(s) on {where}")
+            if not (scheduler or local_cluster) and max(n_workers, 1) * cores > cpus:
+                board.log(
+                    f"warning: {n_workers} worker(s) x {cores} chain(s) exceed {cpus} core(s)"
                 )
-        t_units = time.perf_counter() - t0
-        board.log("merging the units and rendering the report")
-        t0 = time.perf_counter()
-        finished = _finished_units(run_dir, units, entries)
-        _write_merged(run_dir, inspection, units, finished)
-        if finished:
-            from nstress.products.report import write_report
+            for unit in units:
+                cfg = unit_config(wf, unit, cores)
+                digest = unit_hash(unit, cfg)
+                unit_dir = run_dir / UNITS_DIR / unit.dirname
+                entries[unit.name] = {
+                    "name": unit.name,
+                    "dir": f"{UNITS_DIR}/{unit.dirname}",
+                    "group": unit.group,
+                    "tables": list(unit.tables),
+                    "seed": unit.seed,
+                    "input_hash": digest,
+                }
+                if not force and finished_hash(unit_dir) == digest:
+                    damage = damaged_files(unit_dir)
+                    if not damage:
+                        entries[unit.name]["status"] = "skipped"
+                        board.finish(unit.name, "skipped (finished, unchanged)")
+                        board.log(
+                            f"skipping unit {unit.name}: finished, inputs and settings unchanged"
+                        )
+                        continue
+                    entries[unit.name]["refit_because"] = damage
+                    board.log(
+                        f"unit {unit.name}: damaged files ({'; '.join(damage[:3])}); refitting"
+                    )
+                    unlink_output(unit_dir / FINISHED_MARK)
+                jobs.append(
+                    {
+                        "unit": unit.name,
+                        "dirname": unit.dirname,
+                        "tables": list(unit.tables),
+                        "out": str(unit_dir),
+                        "config": dataclasses.asdict(cfg),
+                        "threads": threads,
+                    }
+                )
+            t0 = time.perf_counter()
+            if jobs:
+                if scheduler or local_cluster:
+                    results = _run_dask(jobs, scheduler, local_cluster, board)
+                elif n_workers == 0:
+                    results = _run_inline(jobs, board)
+                else:
+                    results = _run_local(jobs, n_workers, board)
+                for r in results:
+                    entries[r["unit"]].update(
+                        status=r["status"], seconds=r.get("seconds"), error=r.get("error")
+                    )
+            t_units = time.perf_counter() - t0
+            board.log("merging the units and rendering the report")
+            t0 = time.perf_counter()
+            finished = _finished_units(run_dir, units, entries)
+            _write_merged(run_dir, inspection, units, finished)
+            if finished:
+                from nstress.products.report import write_report
 
-            write_report([run_dir / entries[u.name]["dir"] for u in finished], run_dir, wf.title)
-        t_merge = time.perf_counter() - t0
+                write_report(
+                    [run_dir / entries[u.name]["dir"] for u in finished], run_dir, wf.title
+                )
+            t_merge = time.perf_counter() - t0
 
-    failed = [e["name"] for e in entries.values() if e.get("status") == "failed"]
-    bad_diag = [e["name"] for e in entries.values() if e.get("diagnostics", {}).get("ok") is False]
-    manifest = {
-        "nstress_version": __version__,
-        "kind": "run",
-        "complete": not failed,
-        "workflow": {
-            "path": str(wf.path),
-            "sha256": wf.sha256,
-            "name": wf.name,
-            "title": wf.title,
-        },
-        "inputs": inspection.sources,
-        "config": wf.result_config(),
-        "config_hash": config_hash(inspection.sources, wf.result_config()),
-        "seed": wf.seed,
-        "execution": {
-            "workers": n_workers,
-            "threads_per_worker": threads,
-            "parallel_chains": cores,
-            "cores": cpus,
-            "scheduler": scheduler,
-            "local_cluster": local_cluster,
-            "backend": wf.execution.backend,
-        },
-        "versions": versions(),
-        "timings_s": {
-            "check_s": round(t_check, 3),
-            "units_s": round(t_units, 3),
-            "merge_report_s": round(t_merge, 3),
-            "total_s": round(time.perf_counter() - t_start, 3),
-        },
-        "units": list(entries.values()),
-        "failed_units": failed,
-        "diagnostics_failed_units": bad_diag,
-        "files": sorted(p.name for p in run_dir.iterdir() if not p.name.startswith(".")),
-    }
-    atomic_write_text(run_dir / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
-    code = EXIT_FIT_FAILED if failed or bad_diag else EXIT_OK
-    return RunOutcome(code, manifest, run_dir)
+        failed = [e["name"] for e in entries.values() if e.get("status") == "failed"]
+        bad_diag = [
+            e["name"] for e in entries.values() if e.get("diagnostics", {}).get("ok") is False
+        ]
+        manifest = {
+            "nstress_version": __version__,
+            "kind": "run",
+            "complete": not failed,
+            "workflow": {
+                "path": str(wf.path),
+                "sha256": wf.sha256,
+                "name": wf.name,
+                "title": wf.title,
+            },
+            "inputs": inspection.sources,
+            "config": wf.result_config(),
+            "config_hash": config_hash(inspection.sources, wf.result_config()),
+            "seed": wf.seed,
+            "execution": {
+                "workers": n_workers,
+                "threads_per_worker": threads,
+                "parallel_chains": cores,
+                "cores": cpus,
+                "scheduler": scheduler,
+                "local_cluster": local_cluster,
+                "backend": wf.execution.backend,
+            },
+            "versions": versions(),
+            "timings_s": {
+                "check_s": round(t_check, 3),
+                "units_s": round(t_units, 3),
+                "merge_report_s": round(t_merge, 3),
+                "total_s": round(time.perf_counter() - t_start, 3),
+            },
+            "units": list(entries.values()),
+            "failed_units": failed,
+            "diagnostics_failed_units": bad_diag,
+            "files": sorted(p.name for p in run_dir.iterdir() if not p.name.startswith(".")),
+        }
+        atomic_write_text(run_dir / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
+        code = EXIT_FIT_FAILED if failed or bad_diag else EXIT_OK
+        return RunOutcome(code, manifest, run_dir)
 
 
 def _finished_units(
