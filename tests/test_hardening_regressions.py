@@ -33,3 +33,24 @@ def test_one_table_given_as_text_is_one_path(tmp_path: Path):
     path = tmp_path / "wf.toml"
     path.write_text('[inputs]\ntables = "data/colony.csv"\n')
     assert load_workflow(path).tables == [(tmp_path / "data" / "colony.csv").resolve()]
+
+
+@pytest.mark.parametrize(
+    "text",
+    [
+        '[inputs]\ntables = "data/colony.csv"\n[outputs]\nrun_dir = "run\\u0000x"\n',
+        '[inputs]\ntables = ["data/col\\u0000ony.csv"]\n',
+    ],
+)
+def test_nul_character_in_a_path_is_a_config_error(tmp_path: Path, text: str):
+    # found by tests/test_fuzz_workflow.py: "embedded null byte" ValueError from pathlib
+    from nstress.errors import ConfigError
+    from nstress.workflow.config import load_workflow
+
+    (tmp_path / "data").mkdir()
+    (tmp_path / "data" / "colony.csv").write_text(B + "A,plasma,12,-18,2021-01-01\n")
+    path = tmp_path / "wf.toml"
+    path.write_text(text)
+    with pytest.raises(ConfigError, match="NUL character") as info:
+        load_workflow(path)
+    assert info.value.file == str(path.resolve())

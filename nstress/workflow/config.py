@@ -464,6 +464,7 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
     file = str(path)
     doc = copy.deepcopy(doc)
     _reject_non_finite(doc, "", file)
+    _reject_nul(doc, "", file)
     schema = _schema()
     for section, body in doc.items():
         if section not in SECTIONS:
@@ -552,6 +553,19 @@ def _reject_non_finite(value: Any, key: str, file: str) -> None:
     elif isinstance(value, list):
         for i, v in enumerate(value):
             _reject_non_finite(v, f"{key}[{i}]", file)
+
+
+def _reject_nul(value: Any, key: str, file: str) -> None:
+    """Reject text with a NUL character anywhere in the document (no path can hold one)."""
+    if isinstance(value, str) and "\x00" in value:
+        raise ConfigError(f"text contains a NUL character: {value!r}", key=key, file=file)
+    if isinstance(value, dict):
+        for k, v in value.items():
+            _reject_nul(k, key, file)
+            _reject_nul(v, f"{key}.{k}" if key else k, file)
+    elif isinstance(value, list):
+        for i, v in enumerate(value):
+            _reject_nul(v, f"{key}[{i}]", file)
 
 
 def _check_keys(body: dict[str, Any], known: dict[str, Setting], where: str, file: str) -> None:
