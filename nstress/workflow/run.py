@@ -797,7 +797,7 @@ def run_workflow(
             board.log("merging the units and rendering the report")
             t0 = time.perf_counter()
             finished = _finished_units(run_dir, units, entries)
-            _write_merged(run_dir, inspection, units, finished)
+            _write_merged(run_dir, inspection, units, finished, entries)
             if finished:
                 from nstress.products.report import write_report
 
@@ -872,9 +872,18 @@ def _finished_units(
 
 
 def _write_merged(
-    run_dir: Path, inspection: Inspection, units: list[Unit], finished: list[Unit]
+    run_dir: Path,
+    inspection: Inspection,
+    units: list[Unit],
+    finished: list[Unit],
+    entries: dict[str, dict[str, Any]] | None = None,
 ) -> None:
-    """Write the whole input's ledger and the units' merged screening and timelines."""
+    """Write the whole input's ledger and the units' merged screening and timelines.
+
+    A unit whose manifest says its diagnostics failed carries no confident
+    status into the merged screening table, whatever its own table says:
+    its animals are ``fit_failed`` with the unit's reasons.
+    """
     import pandas as pd
 
     from nstress.workflow.cli import write_csv
@@ -886,9 +895,15 @@ def _write_merged(
             f = pd.read_csv(
                 run_dir / UNITS_DIR / u.dirname / name, dtype={"individual": str, "group": str}
             )
+            diag = (entries or {}).get(u.name, {}).get("diagnostics", {})
+            if name == "screening.csv" and diag.get("ok") is False and "status" in f:
+                why = "; ".join(map(str, diag.get("reasons", [])[:3])) or "see the unit's report"
+                f["status"] = "fit_failed"
+                f["diagnostics_ok"] = False
+                f["status_reason"] = f"the unit's fit failed its diagnostics: {why}"
             frames.append(f.assign(unit=u.name))
         if not frames:
-            (run_dir / name).unlink(missing_ok=True)
+            unlink_output(run_dir / name)
             continue
         merged = pd.concat(frames, ignore_index=True)
         atomic_write(
