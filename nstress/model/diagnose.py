@@ -60,6 +60,10 @@ class Diagnostics:
     individual_ok: np.ndarray
     individual_rhat: np.ndarray
     covered: list[str] = field(default_factory=list)
+    method: str = "nuts"
+    """``"nuts"``: R-hat/ESS/divergence checks; ``"fast"``: sanity checks of an approximation."""
+    approximate: bool = False
+    notes: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
         """Plain data for manifests and files."""
@@ -206,4 +210,81 @@ def diagnose(
         individual_ok=ind_ok,
         individual_rhat=ind_rhat,
         covered=sorted(conv),
+    )
+
+
+FAST_NOT_APPLICABLE = (
+    "R-hat, ESS and divergences do not apply to the fast approximation (no Markov chains); "
+    "these are sanity checks of the approximation, not NUTS diagnostics"
+)
+
+
+def diagnose_fast(
+    built: BuiltModel,
+    d: Draws,
+    info: dict[str, Any],
+    thresholds: Thresholds | None = None,
+    seed: int = 0,
+) -> Diagnostics:
+    """Sanity checks of the fast approximation (:mod:`nstress.model.fast`).
+
+    Passing them means the screening statuses may be used for *screening*;
+    it never means the fit passed NUTS diagnostics (``method`` is
+    ``"fast"`` and ``approximate`` is true). The checks: the optimiser
+    reached a mode (``info["converged"]``: max |gradient| at most its
+    tolerance), every draw is finite, and the posterior predictive coverage
+    of every tissue and isotope is at least ``ppc_coverage_min``.
+
+    Parameters
+    ----------
+    built
+        Built model.
+    d
+        Collected draws of the approximation.
+    info
+        The fast fit's information (:attr:`nstress.model.fit.FitResult.info`).
+    thresholds
+        Pass marks (only ``ppc_coverage_min`` applies).
+    seed
+        Seed of the predictive replicates.
+
+    Returns
+    -------
+    Diagnostics
+    """
+    th = thresholds or Thresholds()
+    ppc = _ppc(built, d, seed)
+    reasons = []
+    if not info.get("converged", False):
+        reasons.append(
+            "the optimiser did not reach a mode (max |gradient| "
+            f"{info.get('grad_max', float('nan')):.3g} after {info.get('iterations', 0)} "
+            f"iterations: {info.get('message', '')})"
+        )
+    finite = all(np.all(np.isfinite(v)) for v in d.params.values()) and np.all(
+        np.isfinite(d.p_cond)
+    )
+    if not finite:
+        reasons.append("non-finite values in the approximate draws")
+    for key, v in ppc.items():
+        if v["coverage90"] < th.ppc_coverage_min:
+            reasons.append(
+                f"posterior predictive check of {key}: {v['coverage90']:.0%} of observations "
+                f"inside their 90 % interval (< {th.ppc_coverage_min:.0%})"
+            )
+    n_i = d.p_cond.shape[1]
+    ind_ok = np.isfinite(d.p_cond).all(axis=0)
+    keys = ("converged", "iterations", "evaluations", "grad_max", "eigenvalues_floored", "draws")
+    return Diagnostics(
+        ok=not reasons,
+        reasons=reasons,
+        convergence={},
+        sampler={k: info[k] for k in keys if k in info},
+        ppc=ppc,
+        individual_ok=ind_ok,
+        individual_rhat=np.full(n_i, np.nan),
+        covered=[],
+        method="fast",
+        approximate=True,
+        notes=[FAST_NOT_APPLICABLE],
     )

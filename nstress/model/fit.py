@@ -25,6 +25,8 @@ from nstress.model.build import BuiltModel
 
 log = logging.getLogger(__name__)
 SAMPLERS = ("auto", "nutpie", "pymc")
+METHODS = ("nuts", "fast")
+"""``nuts``: the posterior; ``fast``: the approximate screening mode (:mod:`nstress.model.fast`)."""
 EXECUTION_ONLY = ("cores", "progress", "backend")
 """Sampler settings that change how a fit runs, not its results (kept out of hashes)."""
 
@@ -53,6 +55,12 @@ class SamplerSettings:
         seconds; numba took minutes.
     kwargs
         Extra keyword arguments passed straight to the sampler.
+    method
+        ``"nuts"`` (the posterior) or ``"fast"`` (MAP + block Laplace
+        approximation for first-pass screening, :mod:`nstress.model.fast`;
+        every output says it is approximate).
+    fast_draws
+        Approximate posterior draws of the fast mode.
     """
 
     draws: int = 1000
@@ -65,6 +73,8 @@ class SamplerSettings:
     progress: bool = True
     backend: str = "auto"
     kwargs: dict[str, Any] = field(default_factory=dict)
+    method: str = "nuts"
+    fast_draws: int = 200
 
     def result_settings(self) -> dict[str, Any]:
         """Return the settings that change results (for hashing and provenance)."""
@@ -80,6 +90,8 @@ class FitResult:
     settings: SamplerSettings
     timings: dict[str, float]
     backend: str = ""
+    info: dict[str, Any] = field(default_factory=dict)
+    """Method-specific information (the fast mode: optimiser and Laplace figures)."""
 
 
 def _stored_names(built: BuiltModel) -> list[str]:
@@ -111,6 +123,15 @@ def _resolve_optional(name: str, key: str, choices: tuple[str, ...], fallback: s
         )
     if name == "auto":
         return preferred if installed else fallback
+    return name
+
+
+def resolve_method(name: str) -> str:
+    """Check a fit method name (:data:`METHODS`)."""
+    if name not in METHODS:
+        raise ConfigError(
+            f"unknown method {name!r}; expected one of {list(METHODS)}", key="sampler.method"
+        )
     return name
 
 
