@@ -247,7 +247,33 @@ def _summary(fits: list[FitFiles], sc: pd.DataFrame) -> str:
         if warn
         else '<p class="ok" id="diagnostics-warnings">Diagnostics passed for every unit.</p>'
     )
-    return f'<section id="summary"><h2>Summary</h2><div class="boxes">{boxes}</div>{diag}</section>'
+    if not warn and any(f.manifest.get("approximate") for f in fits):
+        diag = (
+            '<p class="ok" id="diagnostics-warnings">Sanity checks of the approximation passed '
+            "(optimiser at a mode, predictive coverage); these are not NUTS diagnostics.</p>"
+        )
+    return (
+        f'<section id="summary"><h2>Summary</h2>{_approximate_banner(fits)}'
+        f'<div class="boxes">{boxes}</div>{diag}</section>'
+    )
+
+
+APPROXIMATE_BANNER = "Approximate fast screening: not a final posterior."
+
+
+def _approximate_banner(fits: list[FitFiles]) -> str:
+    """Return a banner when any unit was fitted by the fast approximation."""
+    units = [f.unit for f in fits if f.manifest.get("approximate")]
+    if not units:
+        return ""
+    which = "every unit" if len(units) == len(fits) else "unit(s) " + ", ".join(map(str, units))
+    return (
+        f'<div class="warn" id="approximate-banner"><p><b>{_e(APPROXIMATE_BANNER)}</b> '
+        f"{_e(which.capitalize())} fitted by MAP + Laplace approximation for first-pass "
+        "screening; statuses are a screen, intervals are approximate, and R-hat/ESS do not "
+        "apply. Refit the animals of interest with full NUTS (without --fast) before "
+        "drawing conclusions.</p></div>"
+    )
 
 
 def _cautions() -> str:
@@ -410,6 +436,16 @@ def _diagnostics(fits: list[FitFiles], pngs: dict[str, Path]) -> str:
             ]
         )
         sampler = ", ".join(f"{k} {v}" for k, v in d.get("sampler", {}).items())
+        if d.get("method") == "fast":
+            verdict = "fast-mode sanity checks " + ("passed" if d.get("ok") else "FAILED")
+            parts.append(
+                f"<h3>Unit {_e(f.unit)}: approximate ({_e(verdict)})</h3>"
+                f"<p>{_e(' '.join(d.get('notes', [])))}. Optimiser: {_e(sampler)}.</p>"
+            )
+            if len(ppc):
+                parts.append("<p>Posterior predictive checks (per tissue and isotope):</p>")
+                parts.append(_table(ppc, "plain"))
+            continue
         parts.append(
             f"<h3>Unit {_e(f.unit)}: {'passed' if d.get('ok') else 'FAILED'}</h3>"
             f"<p>Sampler: {_e(f.manifest.get('sampler'))}; {_e(sampler)}. Convergence was "

@@ -385,11 +385,15 @@ _FIT_EPILOG = """\
 examples:
   nstress fit colony.csv --out results/
   nstress fit whiskers.csv plasma.csv --out results/ --draws 1000 --tune 1000 --seed 7
+  nstress fit season.csv --out screen/ --fast     # approximate first pass, not final
 
 Writes ledger.csv, timelines.csv, screening.csv, colony_summary.csv,
 timelines.nc, posterior.nc and manifest.json (last) into DIR.
 Exit code 0: fitted and diagnostics passed; 1: the fit failed or failed its
 diagnostics (products are still written, marked); 2: bad input.
+With --fast, the outputs are an approximation for screening (marked
+"approximate" in screening.csv, manifest.json, posterior.nc and the report);
+exit 0 means its sanity checks passed, never that NUTS diagnostics did.
 """
 
 
@@ -436,6 +440,18 @@ def _verbosity(p: argparse.ArgumentParser) -> None:
 def _fit_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("tables", nargs="+", metavar="TABLE", help="sample table(s)")
     p.add_argument("--out", metavar="DIR", type=Path, required=True, help="output directory")
+    p.add_argument(
+        "--fast",
+        action="store_true",
+        help="approximate first-pass screening (MAP + Laplace approximation, minutes for "
+        "thousands of animals); every output is marked approximate: not a final posterior",
+    )
+    p.add_argument(
+        "--fast-draws",
+        type=int,
+        default=200,
+        help="approximate posterior draws of --fast (default: 200)",
+    )
     _model_arguments(p)
 
 
@@ -454,10 +470,15 @@ def _run_fit(args: argparse.Namespace) -> int:
             "chains": args.chains,
             "seed": args.seed,
             "sampler": args.sampler,
+            **({"method": "fast", "fast_draws": args.fast_draws} if args.fast else {}),
         },
         progress=not args.quiet,
     )
+    if args.fast and args.fast_draws < 1:
+        raise NstressError("--fast-draws must be at least 1")
     manifest = fit_tables(args.tables, args.out, cfg, log=progress)
+    if manifest.get("approximate"):
+        progress(f"{manifest['approximate_note']}")
     if not manifest["diagnostics"]["ok"]:
         for r in manifest["diagnostics"]["reasons"][:10]:
             progress(f"diagnostics: {r}")

@@ -50,9 +50,12 @@ Settings that change results (they are hashed; a change refits):
     (≥ 1, default 2), ``seed`` (≥ 0, default 1; each unit's seed is derived
     from it and the unit's name, never from the order of units),
     ``sampler`` (``"auto"``, ``"nutpie"``, ``"pymc"``), ``target_accept``
-    (0-1), ``product_draws`` (≥ 1, draws used for the products) and a
-    ``[sampler.options]`` table passed to the sampler (numbers, text,
-    true/false).
+    (0-1), ``product_draws`` (≥ 1, draws used for the products),
+    ``method`` (``"nuts"``, default, or ``"fast"``: the approximate
+    screening mode, MAP + Laplace, whose outputs are marked approximate and
+    are never a final posterior), ``fast_draws`` (≥ 1, default 200, draws of
+    the fast mode) and a ``[sampler.options]`` table passed to the sampler
+    (numbers, text, true/false).
 ``[screening]``
     Status thresholds: ``flag``, ``clear``, ``min_samples``, ``min_d13C``,
     ``min_span_days``, ``min_tissues``.
@@ -269,7 +272,7 @@ GROWTH_FIELDS = {  # [growth.NAME] key -> Tissue field
 def _schema() -> dict[str, dict[str, Setting]]:
     """Fixed-key sections (``tissues``, ``growth``, ``priors`` have named sub-tables)."""
     from nstress.model.diagnose import Thresholds
-    from nstress.model.fit import BACKENDS, SAMPLERS
+    from nstress.model.fit import BACKENDS, METHODS, SAMPLERS
     from nstress.prep import DEFAULT_CONFIG
     from nstress.products.screening import ScreeningRules
 
@@ -289,6 +292,8 @@ def _schema() -> dict[str, dict[str, Setting]]:
             "target_accept": Setting("number", above=0, high=1),
             "product_draws": COUNT,
             "options": Setting("scalars"),
+            "method": Setting("text", choices=METHODS),
+            "fast_draws": COUNT,
         },
         "screening": {f.name: NONNEG for f in dataclasses.fields(ScreeningRules)},
         "diagnostics": {f.name: NONNEG for f in dataclasses.fields(Thresholds)},
@@ -509,6 +514,8 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
             "sampler": sampler.get("sampler", "auto"),
             **({"target_accept": sampler["target_accept"]} if "target_accept" in sampler else {}),
             **({"kwargs": options} if options else {}),
+            # only when given, so that the hashes of existing NUTS workflows do not change
+            **{k: sampler[k] for k in ("method", "fast_draws") if k in sampler},
             "backend": execution.get("backend", "auto"),
         },
         screening=doc.get("screening", {}),

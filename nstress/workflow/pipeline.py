@@ -166,9 +166,10 @@ def fit_tables(
     from nstress.intake import read_samples
     from nstress.model import posterior as post
     from nstress.model.build import ModelSpec, build_model
-    from nstress.model.diagnose import Thresholds, diagnose
+    from nstress.model.diagnose import Thresholds, diagnose, diagnose_fast
     from nstress.model.draws import collect, latent_paths
-    from nstress.model.fit import SamplerSettings, sample
+    from nstress.model.fast import APPROXIMATE_NOTE, FastSettings, fast_fit
+    from nstress.model.fit import SamplerSettings, resolve_method, sample
     from nstress.prep import prepare
     from nstress.prep.timebase import build_timebase
     from nstress.products.exports import run_summary, tidy_timelines
@@ -208,32 +209,52 @@ def fit_tables(
     digest = config_hash(intake.sources, result_cfg)
 
     # ---- fit ------------------------------------------------------------
-    say(f"sampling: {settings.chains} chains x {settings.draws} draws (+{settings.tune} tune)")
+    fast = resolve_method(settings.method) == "fast"
     try:
-        fit = sample(built, settings)
+        if fast:
+            say(f"{APPROXIMATE_NOTE}; {settings.fast_draws} draws")
+            fit = fast_fit(
+                built,
+                FastSettings(
+                    draws=settings.fast_draws, seed=settings.seed, backend=_fast_backend(settings)
+                ),
+            )
+        else:
+            say(
+                f"sampling: {settings.chains} chains x {settings.draws} draws "
+                f"(+{settings.tune} tune)"
+            )
+            fit = sample(built, settings)
     except FitError:
         atomic_write(out / "ledger.csv", lambda p: write_csv(prepared.ledger.to_frame(), p))
         raise
     timings.update(fit.timings)
-    say(f"sampled with {fit.sampler} in {fit.timings.get('sample_s', 0):.0f} s; diagnosing")
+    spent = sum(v for k, v in fit.timings.items() if k != "compile_s")
+    compiled = fit.timings.get("compile_s", 0)
+    say(f"fitted with {fit.sampler} in {spent:.0f} s (+{compiled:.0f} s compile)")
 
     # ---- products ----------------------------------------------------------
     t0 = time.perf_counter()
     seed = int(settings.seed)
     draws = collect(built, fit.idata, max_draws=cfg.product_draws, seed=seed)
     paths = latent_paths(built, draws)
-    diag = diagnose(built, fit.idata, draws, thresholds, seed=seed, paths=paths)
+    if fast:
+        diag = diagnose_fast(built, draws, fit.info, thresholds, seed=seed)
+    else:
+        diag = diagnose(built, fit.idata, draws, thresholds, seed=seed, paths=paths)
     eps = built.priors["epsilon_loss"]
     prods = compute_products(
         built, draws, paths, epsilon_mu=eps["mu"], epsilon_sd=eps["sigma"], seed=seed
     )
-    screen = screening_table(prods.episodes, tb, diag, rules)
+    screen = screening_table(prods.episodes, tb, diag, rules, approximate=fast)
     summary = colony_summary(screen, draws.episode, tb.groups, tb.group_index)
     preds = observation_predictions(built, draws, seed=seed)
     timings["products_s"] = time.perf_counter() - t0
     prods.dataset.attrs.update(
         {"diagnostics_ok": int(diag.ok), "nstress_version": __version__, "input_hash": digest}
     )
+    if fast:
+        prods.dataset.attrs.update({"approximate": 1, "method": "fast", "note": APPROXIMATE_NOTE})
 
     # ---- write ----------------------------------------------------------------
     out.mkdir(parents=True, exist_ok=True)
@@ -267,7 +288,11 @@ def fit_tables(
         "inputs": intake.sources,
         "diagnostics_ok": diag.ok,
         "sampler": fit.sampler,
+        "method": "fast" if fast else "nuts",
+        "approximate": fast,
     }
+    if fast:
+        attrs.update({"approximate_note": APPROXIMATE_NOTE, "fast": fit.info})
     post.save(fit.idata, out / "posterior.nc", attrs)
     timings["total_s"] = time.perf_counter() - t_start
     manifest = {
@@ -280,6 +305,9 @@ def fit_tables(
         "sampler": fit.sampler,
         "versions": versions(),
         "timings_s": {k: round(v, 3) for k, v in timings.items()},
+        "method": "fast" if fast else "nuts",
+        "approximate": fast,
+        **({"approximate_note": APPROXIMATE_NOTE, "fast": fit.info} if fast else {}),
         "diagnostics": diag.to_dict(),
         "counts": {
             "individuals": int(tb.n_individuals),
@@ -291,16 +319,27 @@ def fit_tables(
         "files": sorted(p.name for p in out.iterdir() if not p.name.startswith(".")),
     }
     atomic_write_text(out / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
+    if fast:
+        verdict = "APPROXIMATE fast screening, " + (
+            "sanity checks passed" if diag.ok else "SANITY CHECKS FAILED"
+        )
+    else:
+        verdict = "diagnostics passed" if diag.ok else "DIAGNOSTICS FAILED"
     if not cfg.report:
-        say(f"wrote {out} ({'diagnostics passed' if diag.ok else 'DIAGNOSTICS FAILED'})")
+        say(f"wrote {out} ({verdict})")
         return manifest
     # the report is rendered from the finished directory's files (re-renderable later)
     say("writing report.html")
     write_report([out], out)
     manifest["files"] = sorted(p.name for p in out.iterdir() if not p.name.startswith("."))
     atomic_write_text(out / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
-    say(f"wrote {out} ({'diagnostics passed' if diag.ok else 'DIAGNOSTICS FAILED'})")
+    say(f"wrote {out} ({verdict})")
     return manifest
+
+
+def _fast_backend(settings: Any) -> str:
+    """PyTensor mode of the fast fit from nutpie's backend setting (``auto``/``jax`` -> JAX)."""
+    return {"jax": "JAX", "numba": "NUMBA"}.get(settings.backend, "auto")
 
 
 def _only_group(used: Any, prepared: Any, group: str) -> Any:
