@@ -179,7 +179,11 @@ def diagnose(
     ss = post.sampler_stats(idata)
     ppc = _ppc(built, d, seed)
     reasons = []
+    if n_chain < 2:
+        reasons.append(f"{n_chain} chain: R-hat needs at least 2 chains, convergence is unchecked")
     for name, v in conv.items():
+        if not np.isfinite(v["rhat_max"]) and n_chain >= 2:
+            reasons.append(f"R-hat of {name} could not be computed")
         if v["rhat_max"] > th.rhat_max:
             reasons.append(f"R-hat of {name} is {v['rhat_max']:.3f} (> {th.rhat_max})")
         if v["ess_bulk_min"] < th.ess_bulk_min:
