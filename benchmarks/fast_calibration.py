@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import logging
 import os
 import sys
 import time
@@ -102,6 +103,9 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--time-n", type=int, default=1000, help="animals of the timing colony")
     ap.add_argument("--out", type=Path, default=Path("bench_out/fast"))
     a = ap.parse_args(argv)
+    logging.basicConfig(level=logging.INFO, format="%(message)s")
+    for noisy in ("pymc", "pytensor", "jax", "numba", "matplotlib"):
+        logging.getLogger(noisy).setLevel(logging.WARNING)
     a.out.mkdir(parents=True, exist_ok=True)
     folders = list(a.reuse)
     for seed in a.seeds:
