@@ -1,0 +1,57 @@
+"""The report's figures for the (synthetic) demo colony, through a real but short fit (slow)."""
+
+from __future__ import annotations
+
+import matplotlib.image as mpimg
+import pandas as pd
+import pytest
+
+from nstress.products import figures as figs
+from nstress.workflow.cli import demo_table
+from nstress.workflow.pipeline import FitConfig, fit_tables
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def demo_fit(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "fit"
+    cfg = FitConfig(
+        sampler={"draws": 30, "tune": 30, "chains": 2, "seed": 4}, progress=False, product_draws=60
+    )
+    fit_tables([demo_table()], out, cfg)
+    return out
+
+
+def test_demo_report_and_every_figure_written(demo_fit):
+    out = demo_fit
+    page = (out / "report.html").read_text(encoding="utf-8")
+    sc = pd.read_csv(out / "screening.csv", dtype={"individual": str})
+    assert page.count('class="individual"') == len(sc) > 30  # one section per animal
+    fig_dir = out / "figures"
+    for stem in ("colony_overview", "ranking", "onsets", "isotope_plane"):
+        for ext in ("png", "svg"):
+            assert (fig_dir / f"{stem}.{ext}").stat().st_size > 1000, (stem, ext)
+    assert len(list(fig_dir.glob("individual_*.png"))) == len(sc)
+    assert list(fig_dir.glob("trace_*.png")) and list(fig_dir.glob("ppc_*.png"))
+    img = mpimg.imread(fig_dir / "colony_overview.png")
+    assert img.shape[0] > 200 and img.shape[1] > 400 and img.std() > 0.05  # not blank
+
+
+def test_demo_figures_have_axes_and_labels(demo_fit):
+    out = demo_fit
+    tl = pd.read_csv(out / "timelines.csv", dtype={"individual": str})
+    sc = pd.read_csv(out / "screening.csv", dtype={"individual": str})
+    pr = pd.read_csv(out / "predictions.csv", dtype={"individual": str})
+    ind = sc.iloc[0]["individual"]
+    fig = figs.individual_figure(ind, pr[pr["individual"] == ind], tl[tl["individual"] == ind])
+    ylabels = [ax.get_ylabel() for ax in fig.axes]
+    assert any("‰ vs AIR" in y for y in ylabels) and any("‰ vs VPDB" in y for y in ylabels)
+    assert any("probability" in y for y in ylabels)
+    assert any(ax.lines or ax.collections for ax in fig.axes)
+    ov = figs.colony_overview(tl, sc)
+    assert ov.axes[0].images and "ISO 8601" in ov.axes[0].get_xlabel()
+    n_rows = ov.axes[0].images[0].get_array().shape[0]
+    assert n_rows >= len(sc)  # one row per animal (plus group separators)
+    ppc = figs.ppc_figure(pr)
+    assert len([ax for ax in ppc.axes if ax.collections or ax.lines]) >= 4  # tissues x isotopes
