@@ -29,7 +29,7 @@ def sim():
     )
     s = simulate_colony(spec)
     tb = build_timebase(table_to_samples(s.table))
-    grid = make_grid(tb, knot_days=spec.knot_days)
+    grid = make_grid(tb, knot_days=spec.knot_days, diet_clock=True)
     return s, tb, grid
 
 
@@ -118,7 +118,7 @@ def _midpoint_bound(ii, start, end, n, p: Params, grid, clock=None):
 @pytest.mark.parametrize("n_points", [6, 2])
 def test_keratin_is_window_mean_of_pool(sim, growth_scale, n_points):
     s, tb, _ = sim
-    grid = make_grid(tb, knot_days=s.spec.knot_days, keratin_points=n_points)
+    grid = make_grid(tb, knot_days=s.spec.knot_days, keratin_points=n_points, diet_clock=True)
     p = dataclasses.replace(s.params, growth=s.params.growth * growth_scale)
     pred = predict(tb, grid, p)
     ii, start, end = _windows(tb, p.growth)
@@ -449,3 +449,25 @@ def test_shift_candidates_reach_past_both_ends_of_the_samples(sim):
     assert np.all(first + grid.spacing <= lo + 1e-9)
     assert np.all(last >= hi - 1e-9)
     assert np.all(np.diff(grid.shift_days, axis=1)[grid.shift_mask[:, 1:]] > 0)
+
+
+def test_without_the_clock_the_diet_runs_on_time(sim):
+    # ModelSpec(diet_clock=False), the default: every animal's clock is time itself, so the
+    # diet on the bins is the knots' interpolation at the bin centres whatever the growth
+    s, tb, _ = sim
+    grid = make_grid(tb, knot_days=s.spec.knot_days)
+    assert not grid.warp_on.any()
+    p = dataclasses.replace(s.params, growth=s.params.growth * 1.5)
+    pred = predict(tb, grid, p)
+    kv = _knot_values(p, grid)
+    diet = np.stack(
+        [
+            np.stack([np.interp(tb.bin_mid, grid.knots, kv[i, :, c]) for i in range(len(kv))])
+            for c in (0, 1)
+        ],
+        axis=-1,
+    )
+    ramp = np.clip((tb.bin_mid[None, :] - p.shift_start[:, None]) / grid.spacing, 0, 1)
+    ramp_a = np.clip((grid.knots[grid.anchor] - p.shift_start) / grid.spacing, 0, 1)
+    shift = (ramp - ramp_a[:, None])[..., None] * p.shift_size[:, None, :]
+    np.testing.assert_allclose(pred.diet, diet + shift, atol=1e-12)

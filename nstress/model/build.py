@@ -80,6 +80,11 @@ class ModelSpec:
         Tissue whose discrimination is fixed at its prior mean (identifies
         the diet level); default: a keratin tissue if present, else the
         first blood tissue.
+    diet_clock
+        Run the diet on each animal's clock pivoted at its keratin
+        collection date (:func:`nstress.model.forward.diet_clock`), so that
+        growth does not trade against the diet walk. Off by default until the
+        recovery benchmark has measured it; off, the clock is time itself.
     """
 
     knot_days: float = forward.DEFAULT_KNOT_DAYS
@@ -92,6 +97,7 @@ class ModelSpec:
     walk_scale_per_animal: bool = False
     episodes: bool = True
     diet_shift: bool = True
+    diet_clock: bool = False
 
 
 @dataclass
@@ -293,7 +299,11 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
     if not spec.shift_step_days > 0:
         raise ConfigError("shift_step_days must be > 0", key="model.shift_step_days")
     grid = forward.make_grid(
-        tb, spec.knot_days, onset_step=spec.onset_step_days, shift_step=spec.shift_step_days
+        tb,
+        spec.knot_days,
+        onset_step=spec.onset_step_days,
+        shift_step=spec.shift_step_days,
+        diet_clock=spec.diet_clock,
     )
     I, G = tb.n_individuals, len(tb.groups)  # noqa: E741
     gi = tb.group_index

@@ -111,6 +111,7 @@ def make_grid(
     keratin_points: int = DEFAULT_KERATIN_POINTS,
     onset_step: float = DEFAULT_ONSET_STEP_DAYS,
     shift_step: float | None = None,
+    diet_clock: bool = False,
 ) -> Grid:
     """Knots every ``knot_days`` across the padded grid, walk matrices, blood lags, candidates.
 
@@ -127,6 +128,9 @@ def make_grid(
     shift_step
         Spacing of the candidate diet-shift starts (days; default the knot
         spacing), see :func:`shift_grid`.
+    diet_clock
+        Pivot each keratin animal's diet clock at its latest keratin
+        collection (:func:`diet_clock`); off, every clock is time itself.
     """
     span = tb.T * tb.bin_width
     n_knots = max(int(np.ceil(span / knot_days)) + 1, 2)
@@ -142,6 +146,7 @@ def make_grid(
     latest = np.argmax(np.where(k.mask, k.t, -np.inf), axis=1) if k.n else np.zeros(0, int)
     rows = np.arange(tb.n_individuals)
     warp_on = k.mask.any(axis=1) if k.n else np.zeros(tb.n_individuals, bool)
+    warp_on = warp_on & bool(diet_clock)
     pivot = np.where(warp_on, k.t[rows, latest], 0.0) if k.n else np.zeros(tb.n_individuals)
     wslot = np.where(warp_on, k.slot[rows, latest], 0) if k.n else np.zeros(tb.n_individuals, int)
     return Grid(
