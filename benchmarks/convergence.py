@@ -12,7 +12,6 @@ kind and whether it has blood draws: the animals and variables that hold a fit b
 from __future__ import annotations
 
 import argparse
-import sys
 from pathlib import Path
 
 import arviz as az
@@ -47,7 +46,7 @@ def main(argv: list[str] | None = None) -> int:
     pd.set_option("display.width", 250)
     pd.set_option("display.max_columns", 40)
     print(table.head(a.top).round(3).to_string())
-    print("\nworst R-hat per variable:", file=sys.stdout)
+    print("\nworst R-hat per variable:")
     print(rh.drop(columns="worst").max().sort_values(ascending=False).round(3).to_string())
     by_kind = (
         table.groupby("kind")["worst"].agg(["median", "max", "count"]) if "kind" in table else None

@@ -60,6 +60,26 @@ def _clock(tb, growth):
     return pivot, rate
 
 
+def _reference_diet(p: Params, grid, w: np.ndarray):
+    """Walk and shift ``(I, T, 2)`` at clock times ``w`` ``(I, T)``, by numpy's interpolation.
+
+    The walk interpolates the knot values linearly (held constant outside); the shift is a
+    ramp over one knot interval of the clock that is 0 at the walk's anchor knot.
+    """
+    kv = _knot_values(p, grid)
+    diet = np.stack(
+        [
+            np.stack([np.interp(w[i], grid.knots, kv[i, :, c]) for i in range(len(kv))])
+            for c in (0, 1)
+        ],
+        axis=-1,
+    )
+    ramp = np.clip((w - p.shift_start[:, None]) / grid.spacing, 0, 1)
+    ramp_a = np.clip((grid.knots[grid.anchor] - p.shift_start) / grid.spacing, 0, 1)
+    shift = (ramp - ramp_a[:, None])[..., None] * p.shift_size[:, None, :]
+    return diet, shift
+
+
 def _windows(tb, growth):
     """Growth window of every keratin segment from the sample table itself.
 
@@ -215,21 +235,9 @@ def test_blood_prediction_equals_reference_weights(sim):
     p = s.params
     pred = predict(tb, grid, p)
     # latent paths on the bins: D by numpy interpolation of the knot values, E closed form
-    kv = _knot_values(p, grid)
     pivot, rate = _clock(tb, p.growth)
     w = pivot[:, None] + rate[:, None] * (tb.bin_mid[None, :] - pivot[:, None])  # diet clock
-    diet = np.stack(
-        [
-            np.stack([np.interp(w[i], grid.knots, kv[i, :, c]) for i in range(len(kv))])
-            for c in (0, 1)
-        ],
-        axis=-1,
-    )
-    # the diet path adds the explicit shift, a ramp over one knot interval of the clock that
-    # is 0 at the walk's anchor knot
-    ramp = np.clip((w - p.shift_start[:, None]) / grid.spacing, 0, 1)
-    ramp_a = np.clip((grid.knots[grid.anchor] - p.shift_start) / grid.spacing, 0, 1)
-    shift = (ramp - ramp_a[:, None])[..., None] * p.shift_size[:, None, :]
+    diet, shift = _reference_diet(p, grid, w)
     assert np.abs(shift).max() > 0.5  # the colony has shifters
     np.testing.assert_allclose(pred.diet, diet + shift, atol=1e-12)
     enrich = eq.enrichment(
@@ -459,15 +467,5 @@ def test_without_the_clock_the_diet_runs_on_time(sim):
     assert not grid.warp_on.any()
     p = dataclasses.replace(s.params, growth=s.params.growth * 1.5)
     pred = predict(tb, grid, p)
-    kv = _knot_values(p, grid)
-    diet = np.stack(
-        [
-            np.stack([np.interp(tb.bin_mid, grid.knots, kv[i, :, c]) for i in range(len(kv))])
-            for c in (0, 1)
-        ],
-        axis=-1,
-    )
-    ramp = np.clip((tb.bin_mid[None, :] - p.shift_start[:, None]) / grid.spacing, 0, 1)
-    ramp_a = np.clip((grid.knots[grid.anchor] - p.shift_start) / grid.spacing, 0, 1)
-    shift = (ramp - ramp_a[:, None])[..., None] * p.shift_size[:, None, :]
+    diet, shift = _reference_diet(p, grid, np.broadcast_to(tb.bin_mid, (tb.n_individuals, tb.T)))
     np.testing.assert_allclose(pred.diet, diet + shift, atol=1e-12)

@@ -15,10 +15,9 @@ from typing import Any
 
 import numpy as np
 
-from nstress.model import forward
 from nstress.model import posterior as post
 from nstress.model.build import BuiltModel
-from nstress.model.draws import Draws, latent_paths, predictions
+from nstress.model.draws import Draws, Replicates, latent_paths, predictive_replicates
 
 HYPER = (
     "p_episode_group",
@@ -99,25 +98,21 @@ def _identified(built: BuiltModel, d: Draws, paths: dict[str, np.ndarray], idata
     return arrays
 
 
-def _ppc(built: BuiltModel, d: Draws, seed: int, n_rep: int = 200) -> dict[str, dict[str, float]]:
-    """Coverage of 90 % posterior predictive intervals, and standardised residuals, per tissue."""
+def _ppc(
+    built: BuiltModel, d: Draws, seed: int, reps: Replicates | None = None
+) -> dict[str, dict[str, float]]:
+    """Coverage of 90 % posterior predictive intervals, and standardised residuals, per tissue.
+
+    ``reps`` are the draws' replicates (:func:`predictive_replicates`, 200
+    draws, this seed) when the caller has them already.
+    """
     tb = built.timebase
-    rng = np.random.default_rng(seed)
-    idx = np.linspace(0, d.n - 1, min(n_rep, d.n)).astype(int)
-    reps = {"blood": [], "keratin": []}
-    for s in idx:
-        pr = predictions(built, d, s)
-        shift = d.params["shift"][s] if "shift" in d.params else None
-        means = forward.expected(pr, d.gamma_ind[s], shift, episode=d.episode[s])
-        esd = d.params["extra_sd"][s]
-        for name, o, mu in (("blood", tb.blood, means[0]), ("keratin", tb.keratin, means[1])):
-            sd = np.sqrt(o.sd**2 + esd[o.tissue] ** 2)
-            reps[name].append(mu + sd * rng.standard_normal(mu.shape))
+    reps = reps or predictive_replicates(built, d, seed=seed)
     out: dict[str, dict[str, float]] = {}
     for name, o in (("blood", tb.blood), ("keratin", tb.keratin)):
         if not o.mask.any():
             continue
-        r = np.stack(reps[name])  # (R, I, N, 2)
+        r = reps.replicated[name]  # (R, I, N, 2)
         lo, hi = np.quantile(r, [0.05, 0.95], axis=0)
         mean, sdv = r.mean(0), r.std(0) + 1e-9
         m = o.y_mask & o.mask[..., None]
@@ -137,6 +132,16 @@ def _ppc(built: BuiltModel, d: Draws, seed: int, n_rep: int = 200) -> dict[str, 
     return out
 
 
+def _ppc_reasons(ppc: dict[str, dict[str, float]], th: Thresholds) -> list[str]:
+    """Reasons for every tissue and isotope whose predictive coverage is below the pass mark."""
+    return [
+        f"posterior predictive check of {key}: {v['coverage90']:.0%} of observations "
+        f"inside their 90 % interval (< {th.ppc_coverage_min:.0%})"
+        for key, v in ppc.items()
+        if v["coverage90"] < th.ppc_coverage_min
+    ]
+
+
 def diagnose(
     built: BuiltModel,
     idata: Any,
@@ -144,6 +149,7 @@ def diagnose(
     thresholds: Thresholds | None = None,
     seed: int = 0,
     paths: dict[str, np.ndarray] | None = None,
+    reps: Replicates | None = None,
 ) -> Diagnostics:
     """Judge a fit on identified quantities, sampler statistics and predictive checks.
 
@@ -161,6 +167,9 @@ def diagnose(
         Seed of the predictive replicates.
     paths
         Latent paths of ``d`` (:func:`nstress.model.draws.latent_paths`) if already computed.
+    reps
+        Predictive replicates of ``d`` (:func:`nstress.model.draws.predictive_replicates`
+        with this seed) if already computed.
 
     Returns
     -------
@@ -177,7 +186,7 @@ def diagnose(
         v["ess_bulk_min"] *= thin if thin > 1 else 1.0
         v["ess_tail_min"] *= thin if thin > 1 else 1.0
     ss = post.sampler_stats(idata)
-    ppc = _ppc(built, d, seed)
+    ppc = _ppc(built, d, seed, reps)
     reasons = []
     if n_chain < 2:
         reasons.append(f"{n_chain} chain: R-hat needs at least 2 chains, convergence is unchecked")
@@ -196,12 +205,7 @@ def diagnose(
             )
     if ss.get("divergences", 0) > th.divergences_max:
         reasons.append(f"{ss['divergences']} divergent transitions")
-    for key, v in ppc.items():
-        if v["coverage90"] < th.ppc_coverage_min:
-            reasons.append(
-                f"posterior predictive check of {key}: {v['coverage90']:.0%} of observations "
-                f"inside their 90 % interval (< {th.ppc_coverage_min:.0%})"
-            )
+    reasons += _ppc_reasons(ppc, th)
     # per individual: R-hat of its P(episode) and weighted enrichment
     ind_rhat = post.rhat_per_column(d.by_chain(np.clip(d.p_cond, 1e-4, 1 - 1e-4)))
     ind_ok = ind_rhat <= max(th.rhat_max, 1.05)
@@ -229,6 +233,7 @@ def diagnose_fast(
     info: dict[str, Any],
     thresholds: Thresholds | None = None,
     seed: int = 0,
+    reps: Replicates | None = None,
 ) -> Diagnostics:
     """Sanity checks of the fast approximation (:mod:`nstress.model.fast`).
 
@@ -251,13 +256,15 @@ def diagnose_fast(
         Pass marks (only ``ppc_coverage_min`` applies).
     seed
         Seed of the predictive replicates.
+    reps
+        Predictive replicates of ``d`` if already computed.
 
     Returns
     -------
     Diagnostics
     """
     th = thresholds or Thresholds()
-    ppc = _ppc(built, d, seed)
+    ppc = _ppc(built, d, seed, reps)
     reasons = []
     if not info.get("converged", False):
         reasons.append(
@@ -270,12 +277,7 @@ def diagnose_fast(
     )
     if not finite:
         reasons.append("non-finite values in the approximate draws")
-    for key, v in ppc.items():
-        if v["coverage90"] < th.ppc_coverage_min:
-            reasons.append(
-                f"posterior predictive check of {key}: {v['coverage90']:.0%} of observations "
-                f"inside their 90 % interval (< {th.ppc_coverage_min:.0%})"
-            )
+    reasons += _ppc_reasons(ppc, th)
     n_i = d.p_cond.shape[1]
     ind_ok = np.isfinite(d.p_cond).all(axis=0)
     keys = ("converged", "iterations", "evaluations", "grad_max", "eigenvalues_floored", "draws")

@@ -194,6 +194,52 @@ def latent_paths(built: BuiltModel, d: Draws) -> dict[str, np.ndarray]:
     return {"diet": diet, "enrich": enrich, "inside": inside}
 
 
+@dataclass
+class Replicates:
+    """Expected values and posterior predictive replicates of every observation.
+
+    ``index`` are the draws used (evenly spaced); ``expected`` and
+    ``replicated`` map ``"blood"``/``"keratin"`` to ``(R, I, N, 2)`` arrays:
+    the draw's expected value, and that plus the draw's observation noise.
+    """
+
+    index: np.ndarray
+    expected: dict[str, np.ndarray]
+    replicated: dict[str, np.ndarray]
+
+
+def predictive_replicates(
+    built: BuiltModel, d: Draws, n_rep: int = 200, seed: int = 0
+) -> Replicates:
+    """Push up to ``n_rep`` evenly spaced draws through the forward model, with noise.
+
+    Shared by the posterior predictive checks (:mod:`nstress.model.diagnose`)
+    and the fitted curves of the products
+    (:func:`nstress.products.predictions.observation_predictions`), so the
+    forward model runs once per draw for both.
+    """
+    tb = built.timebase
+    rng = np.random.default_rng(seed)
+    idx = np.unique(np.linspace(0, d.n - 1, min(n_rep, d.n)).astype(int))
+    sets = (("blood", tb.blood), ("keratin", tb.keratin))
+    exp: dict[str, list[np.ndarray]] = {"blood": [], "keratin": []}
+    rep: dict[str, list[np.ndarray]] = {"blood": [], "keratin": []}
+    for s in idx:
+        pr = predictions(built, d, int(s))
+        shift = d.params["shift"][s] if "shift" in d.params else None
+        means = forward.expected(pr, d.gamma_ind[s], shift, episode=d.episode[s])
+        esd = d.params["extra_sd"][s]
+        for (name, o), mu in zip(sets, means, strict=True):
+            sd = np.sqrt(o.sd**2 + esd[o.tissue] ** 2)
+            exp[name].append(mu)
+            rep[name].append(mu + sd * rng.standard_normal(mu.shape))
+    return Replicates(
+        index=idx,
+        expected={k: np.stack(v) for k, v in exp.items()},
+        replicated={k: np.stack(v) for k, v in rep.items()},
+    )
+
+
 def predictions(
     built: BuiltModel,
     d: Draws,

@@ -142,13 +142,14 @@ def make_grid(
     slot[blood_tissues] = np.arange(len(blood_tissues))
     onsets, onset_mask = onset_grid(tb, onset_step)
     shifts, shift_mask = shift_grid(tb, knots, shift_step)
-    k = tb.keratin
-    latest = np.argmax(np.where(k.mask, k.t, -np.inf), axis=1) if k.n else np.zeros(0, int)
-    rows = np.arange(tb.n_individuals)
-    warp_on = k.mask.any(axis=1) if k.n else np.zeros(tb.n_individuals, bool)
-    warp_on = warp_on & bool(diet_clock)
-    pivot = np.where(warp_on, k.t[rows, latest], 0.0) if k.n else np.zeros(tb.n_individuals)
-    wslot = np.where(warp_on, k.slot[rows, latest], 0) if k.n else np.zeros(tb.n_individuals, int)
+    k, n_ind = tb.keratin, tb.n_individuals
+    warp_on, pivot, wslot = np.zeros(n_ind, bool), np.zeros(n_ind), np.zeros(n_ind, np.int64)
+    if diet_clock and k.n:
+        rows = np.arange(n_ind)
+        latest = np.argmax(np.where(k.mask, k.t, -np.inf), axis=1)
+        warp_on = k.mask.any(axis=1)
+        pivot = np.where(warp_on, k.t[rows, latest], 0.0)
+        wslot = np.where(warp_on, k.slot[rows, latest], 0)
     return Grid(
         knots=knots,
         walk=eq.anchored_walk_matrix(n_knots, anchor),
@@ -284,7 +285,10 @@ def clock_rate(grid: Grid, growth: Any, xp: ModuleType = np) -> Any:
     """Rate r ``(..., I)`` of each individual's diet clock: its pivot keratin's growth multiplier.
 
     ``growth`` is ``(..., I, K_keratin)``; individuals without keratin get 1.
+    ``None`` when no individual has a clock (every clock is time itself).
     """
+    if not grid.warp_on.any():
+        return None
     rows = np.arange(grid.warp_pivot.shape[0])
     r = growth[..., rows, grid.warp_slot] if xp is np else growth[rows, grid.warp_slot]
     return xp.where(grid.warp_on, r, 1.0)
@@ -301,8 +305,10 @@ def diet_clock(grid: Grid, t: Any, rate: Any, xp: ModuleType = np) -> Any:
     diet on absolute time, a faster growth moved every segment and the whole
     walk and shift had to follow; chains settled at different growth rates).
     Growth is then told by what runs on absolute time: the episode and the
-    blood draws. ``rate`` is ``(..., I)`` (:func:`clock_rate`).
+    blood draws. ``rate`` is ``(..., I)`` (:func:`clock_rate`); ``None``: w = t.
     """
+    if rate is None:
+        return t
     extra = t.ndim - rate.ndim
     idx = (Ellipsis,) + (None,) * extra
     p = grid.warp_pivot[idx]
@@ -531,15 +537,13 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
         st = (p.shift_start[:, None] if one_shift else p.shift_start)[:, None, :]  # (I, 1, J)
         w = grid.spacing
         at_anchor = eq.ramp(grid.knots[grid.anchor][:, None, None], st, w, xp=xp)
-        r3, p3 = clock[:, None, None], grid.warp_pivot[:, None, None]
+        st_abs, w_abs = st, w  # the ramp on absolute time, for the blood draws
+        if clock is not None:
+            r3, p3 = clock[:, None, None], grid.warp_pivot[:, None, None]
+            st_abs, w_abs = p3 + (st - p3) / r3, w / r3
         blood_s = (
             eq.ramp_incorporated(
-                b.t[..., None],
-                p3 + (st - p3) / r3,
-                w / r3,
-                p.rate[b.tissue][..., None],
-                ref=ref,
-                xp=xp,
+                b.t[..., None], st_abs, w_abs, p.rate[b.tissue][..., None], ref=ref, xp=xp
             )
             - at_anchor
         )

@@ -48,8 +48,6 @@ from nstress.model.forward import (
     Grid,
     Params,
     Prediction,
-    clock_rate,
-    diet_clock,
     expected,
     make_grid,
     predict,
@@ -654,12 +652,10 @@ def simulate_colony(spec: ColonySpec | None = None) -> Simulation:
     hi = np.where(bad, np.maximum(collect - margin, rec_start + margin + 1e-6), hi)
     when = rng.uniform(0.0, 1.0, I) * (hi - lo) + lo
     step_at = np.clip(np.searchsorted(grid.knots, when, side="right") - 1, 0, K - 1)
-    # middle of the ramp on absolute time (it lasts one knot spacing of the clock, W/r)
-    shift_t = grid.knots[step_at] + 0.5 * margin / clock_rate(grid, growth)
+    shift_t = 0.5 * (grid.knots[step_at] + grid.knots[step_at + 1])
     # the shift is the model's explicit shift term: a ramp over one knot interval
     shift_size = np.stack([shift_dn, shift_dc], axis=-1)
-    # the model's shift start is on the diet clock (forward.diet_clock)
-    shift_start = diet_clock(grid, grid.knots[step_at].astype(float), clock_rate(grid, growth))
+    shift_start = grid.knots[step_at].astype(float)
     # tissues
     tdef = [reg[t] for t in tb.tissues]
     disc = np.array([[t.disc_d15N, t.disc_d13C] for t in tdef])
@@ -708,7 +704,7 @@ def simulate_colony(spec: ColonySpec | None = None) -> Simulation:
         shift_t,
         shift_dn,
         shift_dc,
-        margin / clock_rate(grid, growth),  # the ramp's length on absolute time
+        margin,
     )
     truth_bins = _truth_bins(tb, pred, has_ep, onset, duration)
     return Simulation(spec, table, truth_ind, truth_bins, params, tb, grid, pred)
@@ -782,7 +778,7 @@ def _truth_individuals(
             "has_shift": has_shift,
             "shift_type": shift_type,
             "shift_date": _iso(np.where(has_shift, origin + shift_t, nan)),
-            "shift_ramp_days": np.where(has_shift, np.round(ramp, 3), nan),
+            "shift_ramp_days": np.where(has_shift, round(ramp, 3), nan),
             "shift_d15N": np.round(shift_dn, r),
             "shift_d13C": np.round(shift_dc, r),
             "peak_enrichment_d15N": np.round(peak, r),

@@ -26,9 +26,8 @@ import numpy as np
 import pandas as pd
 
 from nstress import dims
-from nstress.model import forward
 from nstress.model.build import BuiltModel
-from nstress.model.draws import Draws, predictions
+from nstress.model.draws import Draws, Replicates, predictive_replicates
 
 Q_LO, Q_HI = 0.05, 0.95
 PREDICTION_COLUMNS = [
@@ -51,7 +50,12 @@ PREDICTION_COLUMNS = [
 
 
 def observation_predictions(
-    built: BuiltModel, d: Draws, *, max_draws: int = 200, seed: int = 0
+    built: BuiltModel,
+    d: Draws,
+    *,
+    max_draws: int = 200,
+    seed: int = 0,
+    reps: Replicates | None = None,
 ) -> pd.DataFrame:
     """Return expected and predicted values of every observation (long table, see module doc).
 
@@ -65,6 +69,10 @@ def observation_predictions(
         At most this many draws (evenly spaced) are pushed through the forward model.
     seed
         Seed of the predictive noise.
+    reps
+        The draws' replicates (:func:`nstress.model.draws.predictive_replicates`
+        with ``max_draws`` and ``seed``) if already computed, e.g. for the
+        posterior predictive checks.
 
     Returns
     -------
@@ -72,33 +80,22 @@ def observation_predictions(
         Columns :data:`PREDICTION_COLUMNS`.
     """
     tb = built.timebase
-    rng = np.random.default_rng(seed)
-    idx = np.unique(np.linspace(0, d.n - 1, min(max_draws, d.n)).astype(int))
-    sets = (("blood", tb.blood), ("keratin", tb.keratin))
-    exp: dict[str, list[np.ndarray]] = {"blood": [], "keratin": []}
-    rep: dict[str, list[np.ndarray]] = {"blood": [], "keratin": []}
-    ker_t: list[np.ndarray] = []
-    rows = np.arange(tb.n_individuals)[:, None]
-    for s in idx:
-        pr = predictions(built, d, int(s))
-        shift = d.params["shift"][s] if "shift" in d.params else None
-        means = forward.expected(pr, d.gamma_ind[s], shift, episode=d.episode[s])
-        esd = d.params["extra_sd"][s]
-        for (name, o), mu in zip(sets, means, strict=True):
-            sd = np.sqrt(o.sd**2 + esd[o.tissue] ** 2)
-            exp[name].append(mu)
-            rep[name].append(mu + sd * rng.standard_normal(mu.shape))
-        k = tb.keratin
-        r = d.params["growth"][s][rows, k.slot]
-        ker_t.append(k.t - 0.5 * (k.h_lo + k.h_hi) / r)
-    frames = []
-    for name, o in sets:
-        if not o.mask.any():
-            continue
-        e = np.stack(exp[name])  # (R, I, N, 2)
-        y = np.stack(rep[name])
-        t = np.median(np.stack(ker_t), axis=0) if name == "keratin" else o.t
-        frames.append(_long(tb, o, name, t, e, y))
+    reps = reps or predictive_replicates(built, d, n_rep=max_draws, seed=seed)
+    k = tb.keratin
+    r = d.params["growth"][reps.index][:, np.arange(tb.n_individuals)[:, None], k.slot]
+    ker_t = np.median(k.t - 0.5 * (k.h_lo + k.h_hi) / r, axis=0)  # window centres
+    frames = [
+        _long(
+            tb,
+            o,
+            name,
+            ker_t if name == "keratin" else o.t,
+            reps.expected[name],
+            reps.replicated[name],
+        )
+        for name, o in (("blood", tb.blood), ("keratin", tb.keratin))
+        if o.mask.any()
+    ]
     out = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
     return out.reindex(columns=PREDICTION_COLUMNS)
 

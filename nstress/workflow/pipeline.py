@@ -167,7 +167,7 @@ def fit_tables(
     from nstress.model import posterior as post
     from nstress.model.build import ModelSpec, build_model
     from nstress.model.diagnose import Thresholds, diagnose, diagnose_fast
-    from nstress.model.draws import collect, latent_paths
+    from nstress.model.draws import collect, latent_paths, predictive_replicates
     from nstress.model.fast import APPROXIMATE_NOTE, FastSettings, fast_fit
     from nstress.model.fit import SamplerSettings, resolve_method, sample
     from nstress.prep import prepare
@@ -238,17 +238,18 @@ def fit_tables(
     seed = int(settings.seed)
     draws = collect(built, fit.idata, max_draws=cfg.product_draws, seed=seed)
     paths = latent_paths(built, draws)
+    reps = predictive_replicates(built, draws, seed=seed)  # for the checks and predictions.csv
     if fast:
-        diag = diagnose_fast(built, draws, fit.info, thresholds, seed=seed)
+        diag = diagnose_fast(built, draws, fit.info, thresholds, seed=seed, reps=reps)
     else:
-        diag = diagnose(built, fit.idata, draws, thresholds, seed=seed, paths=paths)
+        diag = diagnose(built, fit.idata, draws, thresholds, seed=seed, paths=paths, reps=reps)
     eps = built.priors["epsilon_loss"]
     prods = compute_products(
         built, draws, paths, epsilon_mu=eps["mu"], epsilon_sd=eps["sigma"], seed=seed
     )
     screen = screening_table(prods.episodes, tb, diag, rules, approximate=fast)
     summary = colony_summary(screen, draws.episode, tb.groups, tb.group_index)
-    preds = observation_predictions(built, draws, seed=seed)
+    preds = observation_predictions(built, draws, seed=seed, reps=reps)
     timings["products_s"] = time.perf_counter() - t0
     prods.dataset.attrs.update(
         {"diagnostics_ok": int(diag.ok), "nstress_version": __version__, "input_hash": digest}
