@@ -323,3 +323,14 @@ def test_valid_tables_in_any_encoding_and_layout_are_read_completely(spec):
     led = intake.ledger.to_frame()
     assert (led["status"] != "excluded").all()
     assert intake.samples["n_replicates"].sum() == len(rows)
+
+
+@pytest.mark.parametrize("eol", ["\n", "\r\n", "\r"])
+def test_carriage_return_inside_a_quoted_header_cell(tmp_path, eol):
+    # found by the large profile: a quoted "\r" in the header made the delimiter
+    # sniffer split the first line inside the quotes, and the stdlib csv reader raised
+    header = ["\r", "tissue", "d15N", "d13C", "position_mm", "segment_length_mm"]
+    header += ["collected", "group", "sample_id", "sd_d15N", "individual", "\r"]
+    row = ["", "whisker", "1.00", "-10.00", "1.00", "1.00", "2015-01-01", "north", "", "1.00"]
+    row += ["A", ""]
+    assert run_case(header, [row], ";", eol, "utf-8", tmp_path) in ("result", "clear_error")

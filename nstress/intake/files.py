@@ -148,8 +148,10 @@ def _decode(data: bytes, name: str, notes: list[str]) -> tuple[str, bytes | None
 
 
 def _sniff_delimiter(text: str) -> str:
-    first = next((line for line in text[:65536].splitlines() if line.strip()), "")
-    first = re.sub(r'"[^"]*"', "", first)
+    # Quoted fields may hold delimiters and line breaks: drop them before
+    # taking the first line (split on "\n" only; a lone "\r" may sit in a cell).
+    head = re.sub(r'"[^"]*"', "", text[:65536])
+    first = next((line for line in head.split("\n") if line.strip()), "")
     counts = {d: first.count(d) for d in _DELIMITERS}
     best = max(counts, key=lambda d: counts[d])
     return best if counts[best] > 0 else ","
@@ -178,7 +180,10 @@ def _read_text_arrow(text: str, utf8: bytes | None, sep: str) -> _Cells | None:
         import pyarrow.csv as pacsv
     except ImportError:
         return None
-    header = next(csv.reader(io.StringIO(text), delimiter=sep), [])
+    try:
+        header = next(csv.reader(io.StringIO(text, newline=""), delimiter=sep), [])
+    except csv.Error:
+        return None  # pandas gives the message
     names = [f"f{i}" for i in range(len(header))]
     try:
         table = pacsv.read_csv(
