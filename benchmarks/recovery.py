@@ -33,6 +33,7 @@ def run_one(
     out: Path,
     progress: bool = True,
     priors: dict | None = None,
+    model: dict | None = None,
     **spec_kw,
 ) -> dict:
     sim = simulate_colony(ColonySpec(n_individuals=n, seed=seed, **spec_kw))
@@ -43,6 +44,7 @@ def run_one(
         sampler={"draws": draws, "tune": tune, "chains": chains, "seed": seed, "sampler": sampler},
         progress=progress,
         priors=priors or {},
+        model=model or {},
     )
     t0 = time.perf_counter()
     manifest = fit_tables(
@@ -61,6 +63,7 @@ def run_one(
         "tune": tune,
         "chains": chains,
         "sampler": manifest["sampler"],
+        "model": model or {},
         "wall_s": wall,
         "timings": manifest["timings_s"],
         "metrics": m,
@@ -74,6 +77,13 @@ def run_one(
         "convergence": conv,
     }
     return rec
+
+
+def _number_or_text(value: str) -> float | str:
+    try:
+        return float(value)
+    except ValueError:
+        return value
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -92,7 +102,19 @@ def main(argv: list[str] | None = None) -> int:
         metavar="NAME.FIELD=VALUE",
         help="override a prior, e.g. --prior walk_df.value=6",
     )
+    ap.add_argument(
+        "--model",
+        action="append",
+        default=[],
+        metavar="SETTING=VALUE",
+        help="a ModelSpec setting, e.g. --model diet_clock=true --model onset_step_days=12",
+    )
     a = ap.parse_args(argv)
+    model: dict = {}
+    for item in a.model:
+        key, value = item.split("=", 1)
+        low = value.strip().lower()
+        model[key] = low == "true" if low in ("true", "false") else _number_or_text(value)
     priors: dict = {}
     for item in a.prior:
         key, value = item.split("=", 1)
@@ -102,7 +124,7 @@ def main(argv: list[str] | None = None) -> int:
     out.mkdir(parents=True, exist_ok=True)
     recs = []
     for s in a.seeds:
-        rec = run_one(a.n, s, a.draws, a.tune, a.chains, a.sampler, out, priors=priors)
+        rec = run_one(a.n, s, a.draws, a.tune, a.chains, a.sampler, out, priors=priors, model=model)
         recs.append(rec)
         (out / "recovery.json").write_text(json.dumps(recs, indent=2, default=str))
         m = rec["metrics"]

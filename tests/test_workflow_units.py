@@ -140,3 +140,18 @@ def test_run_directory_from_the_command_line_and_the_seeds_in_the_manifest(
     assert len(set(seeds.values())) == 2
     assert manifest["inputs"][0]["sha256"] == sha256_file(workflow.parent / "colony.csv")
     assert {"check_s", "units_s", "total_s"} <= set(manifest["timings_s"])
+
+
+def test_model_settings_reach_the_model_spec_and_unknown_ones_are_refused():
+    from nstress.errors import ConfigError
+    from nstress.workflow.pipeline import FitConfig, model_spec
+
+    spec = model_spec(FitConfig(knot_days=12.0, model={"diet_clock": True, "onset_step_days": 9}))
+    assert spec.diet_clock is True and spec.onset_step_days == 9 and spec.knot_days == 12.0
+    # a model setting changes results, so it enters the hash; none leaves the hash as before
+    assert "model" in FitConfig(model={"diet_clock": True}).result_config()
+    assert "model" not in FitConfig().result_config()
+    with pytest.raises(ConfigError, match="unknown model setting 'diet_clok'"):
+        model_spec(FitConfig(model={"diet_clok": True}))
+    with pytest.raises(ConfigError, match="unknown model setting 'knot_days'"):
+        model_spec(FitConfig(model={"knot_days": 8.0}))

@@ -60,6 +60,9 @@ class FitConfig:
     report
         Render ``report.html`` into the fit directory (execution only; a
         workflow run renders one merged report instead).
+    model
+        Further :class:`nstress.model.build.ModelSpec` settings by name (for
+        example ``diet_clock`` or ``onset_step_days``); they change results.
     """
 
     bin_days: float = 4.0
@@ -75,6 +78,7 @@ class FitConfig:
     cores: int | None = None
     progress: bool = True
     report: bool = True
+    model: dict[str, Any] = field(default_factory=dict)
 
     def result_config(self) -> dict[str, Any]:
         """Return the settings that change results, as plain data (hashed for caching)."""
@@ -85,8 +89,34 @@ class FitConfig:
             d.pop(key)
         if d["group"] is None:  # a whole-table fit hashes as it always did
             d.pop("group")
+        if not d["model"]:
+            d.pop("model")
         d["sampler"] = {k: v for k, v in d["sampler"].items() if k not in EXECUTION_ONLY}
         return d
+
+
+def model_spec(cfg: FitConfig) -> Any:
+    """Return the :class:`nstress.model.build.ModelSpec` of a fit configuration.
+
+    Raises
+    ------
+    ConfigError
+        An unknown ``model`` setting, or one that ``FitConfig`` sets itself.
+    """
+    from dataclasses import fields
+
+    from nstress.errors import ConfigError
+    from nstress.model.build import ModelSpec
+
+    own = {"knot_days", "priors"}
+    allowed = sorted(f.name for f in fields(ModelSpec) if f.name not in own)
+    for key in cfg.model:
+        if key not in allowed:
+            raise ConfigError(
+                f"unknown model setting {key!r}; expected one of {', '.join(allowed)}",
+                key=f"model.{key}",
+            )
+    return ModelSpec(knot_days=cfg.knot_days, priors=cfg.priors, **cfg.model)
 
 
 def sha256_file(path: str | Path) -> str:
@@ -165,7 +195,7 @@ def fit_tables(
     """
     from nstress.intake import read_samples
     from nstress.model import posterior as post
-    from nstress.model.build import ModelSpec, build_model
+    from nstress.model.build import build_model
     from nstress.model.diagnose import Thresholds, diagnose, diagnose_fast
     from nstress.model.draws import collect, latent_paths, predictive_replicates
     from nstress.model.fast import APPROXIMATE_NOTE, FastSettings, fast_fit
@@ -203,7 +233,7 @@ def fit_tables(
     timings["intake_prep_s"] = time.perf_counter() - t_start
     say(f"{tb.n_individuals} individuals, {len(used)} samples, tissues {', '.join(tb.tissues)}")
     t0 = time.perf_counter()
-    built = build_model(tb, ModelSpec(knot_days=cfg.knot_days, priors=cfg.priors))
+    built = build_model(tb, model_spec(cfg))
     timings["build_s"] = time.perf_counter() - t0
     result_cfg = cfg.result_config()
     digest = config_hash(intake.sources, result_cfg)
