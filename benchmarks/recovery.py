@@ -34,6 +34,7 @@ def run_one(
     progress: bool = True,
     priors: dict | None = None,
     model: dict | None = None,
+    sampler_kw: dict | None = None,
     **spec_kw,
 ) -> dict:
     sim = simulate_colony(ColonySpec(n_individuals=n, seed=seed, **spec_kw))
@@ -41,7 +42,14 @@ def run_one(
     data = folder / "data"
     write_simulation(sim, data)
     cfg = FitConfig(
-        sampler={"draws": draws, "tune": tune, "chains": chains, "seed": seed, "sampler": sampler},
+        sampler={
+            "draws": draws,
+            "tune": tune,
+            "chains": chains,
+            "seed": seed,
+            "sampler": sampler,
+            "kwargs": sampler_kw or {},
+        },
         progress=progress,
         priors=priors or {},
         model=model or {},
@@ -64,6 +72,7 @@ def run_one(
         "chains": chains,
         "sampler": manifest["sampler"],
         "model": model or {},
+        "sampler_kw": sampler_kw or {},
         "wall_s": wall,
         "timings": manifest["timings_s"],
         "metrics": m,
@@ -109,7 +118,19 @@ def main(argv: list[str] | None = None) -> int:
         metavar="SETTING=VALUE",
         help="a ModelSpec setting, e.g. --model diet_clock=true --model onset_step_days=12",
     )
+    ap.add_argument(
+        "--sampler-kw",
+        action="append",
+        default=[],
+        metavar="NAME=VALUE",
+        help="passed to the sampler, e.g. --sampler-kw low_rank_modified_mass_matrix=true",
+    )
     a = ap.parse_args(argv)
+    sampler_kw: dict = {}
+    for item in a.sampler_kw:
+        key, value = item.split("=", 1)
+        low = value.strip().lower()
+        sampler_kw[key] = low == "true" if low in ("true", "false") else _number_or_text(value)
     model: dict = {}
     for item in a.model:
         key, value = item.split("=", 1)
@@ -124,7 +145,18 @@ def main(argv: list[str] | None = None) -> int:
     out.mkdir(parents=True, exist_ok=True)
     recs = []
     for s in a.seeds:
-        rec = run_one(a.n, s, a.draws, a.tune, a.chains, a.sampler, out, priors=priors, model=model)
+        rec = run_one(
+            a.n,
+            s,
+            a.draws,
+            a.tune,
+            a.chains,
+            a.sampler,
+            out,
+            priors=priors,
+            model=model,
+            sampler_kw=sampler_kw,
+        )
         recs.append(rec)
         (out / "recovery.json").write_text(json.dumps(recs, indent=2, default=str))
         m = rec["metrics"]
