@@ -203,3 +203,81 @@ def test_mixture_over_group_onsets_matches_explicit_enumeration():
             for m in np.flatnonzero(grid.onset_mask[i]):
                 tot += np.exp(log_u[i, j] + logw[i, k, m] + ll_ep[i, j, m] - ll_none[i, 0])
         np.testing.assert_allclose(lp1[i, k], np.log(pi) + np.log(tot) + ll_none[i, 0], rtol=1e-9)
+
+
+def test_shift_size_integrated_out_is_the_gaussian_marginal_likelihood():
+    # With the shift size Δ ~ Normal(0, Σ) integrated out, each table entry must be the
+    # marginal likelihood of a linear-Gaussian model, y ~ Normal(μ₀, A Σ Aᵀ + R), with A
+    # the response of the expected values to Δ (Bishop 2006, Pattern Recognition and
+    # Machine Learning, eq. 2.115), evaluated here with scipy's multivariate normal; and
+    # the PyTensor graph must give the same numbers.
+    import dataclasses
+
+    from scipy.stats import multivariate_normal
+
+    sim, tb, grid = _setup()
+    p = sim.params
+    extra = np.full((len(tb.tissues), 2), 0.07)
+    sd, rho = np.array([1.2, 0.8]), 0.4
+    cov = np.array([[sd[0] ** 2, rho * sd[0] * sd[1]], [rho * sd[0] * sd[1], sd[1] ** 2]])
+    cand = dataclasses.replace(p, onset=grid.onset_days, shift_start=grid.shift_days)
+    ll_none, ll_ep = candidate_logliks(
+        tb, predict(tb, grid, cand), p.gamma, None, extra, shift_prior=(sd, rho)
+    )
+    J, M = grid.shift_days.shape[1], grid.onset_days.shape[1]
+    zero = np.zeros_like(p.shift_size)
+
+    def marginal(j, m, episode):
+        one = dataclasses.replace(p, onset=grid.onset_days[:, m], shift_start=grid.shift_days[:, j])
+        if not episode:
+            one = dataclasses.replace(one, kappa=np.zeros_like(p.kappa))
+        pr = predict(tb, grid, one)
+        base = expected(pr, p.gamma, zero)
+        unit = [expected(pr, p.gamma, zero + np.eye(2)[c]) for c in range(2)]
+        out = np.zeros(tb.n_individuals)
+        for i in range(tb.n_individuals):
+            y, mu, rows, var = [], [], [], []
+            for s, o in enumerate((tb.blood, tb.keratin)):
+                m_ = o.y_mask[i] & o.mask[i][:, None]
+                y.append(o.y[i][m_])
+                mu.append(base[s][i][m_])
+                rows.append(np.stack([unit[c][s][i][m_] - base[s][i][m_] for c in range(2)], 1))
+                var.append((o.sd[i] ** 2 + extra[o.tissue[i]] ** 2)[m_])
+            A = np.concatenate(rows)
+            S = A @ cov @ A.T + np.diag(np.concatenate(var))
+            out[i] = multivariate_normal.logpdf(np.concatenate(y), np.concatenate(mu), S)
+        return out
+
+    for j, m in ((0, 0), (J // 2, M // 3), (J - 1, M - 1)):
+        np.testing.assert_allclose(ll_ep[:, j, m], marginal(j, m, True), rtol=1e-9)
+        np.testing.assert_allclose(ll_none[:, j], marginal(j, m, False), rtol=1e-9)
+
+    gamma, sd_t, rho_t = pt.vector("gamma"), pt.vector("sd"), pt.scalar("rho")
+    tn, te = candidate_logliks(
+        tb,
+        predict(tb, grid, cand),
+        gamma,
+        None,
+        pt.as_tensor(extra),
+        xp=pt,
+        shift_prior=(sd_t, rho_t),
+    )
+    f = pytensor.function([gamma, sd_t, rho_t], [tn, te], mode="FAST_COMPILE")
+    a_none, a_ep = f(np.asarray(p.gamma, dtype=float), sd, rho)
+    np.testing.assert_allclose(a_none, ll_none, rtol=1e-11)
+    np.testing.assert_allclose(a_ep, ll_ep, rtol=1e-11)
+
+
+def test_shift_size_draws_follow_the_conditional_normal():
+    # draws of Δ given its linear and quadratic coefficients: mean P⁻¹L, covariance P⁻¹
+    # with P = Q + Σ⁻¹ (conjugate Normal update, Bishop 2006, eq. 2.116-2.117)
+    from nstress.model.forward import draw_shift
+
+    sd, rho = np.array([1.0, 0.5]), -0.3
+    cov = np.array([[sd[0] ** 2, rho * sd[0] * sd[1]], [rho * sd[0] * sd[1], sd[1] ** 2]])
+    L, Q = np.array([3.0, -2.0]), np.array([4.0, 9.0])
+    P = np.diag(Q) + np.linalg.inv(cov)
+    rng = np.random.default_rng(5)
+    x = draw_shift(np.broadcast_to(L, (200_000, 2)), np.broadcast_to(Q, (200_000, 2)), sd, rho, rng)
+    np.testing.assert_allclose(x.mean(axis=0), np.linalg.solve(P, L), atol=3e-3)
+    np.testing.assert_allclose(np.cov(x.T), np.linalg.inv(P), atol=3e-3)

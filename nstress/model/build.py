@@ -71,7 +71,8 @@ class ModelSpec:
         diet shifters move; it makes a funnel with the increments).
     diet_shift
         One explicit diet shift per animal (a ramp over one knot interval,
-        size (Δδ15N, Δδ13C), start summed exactly over the knots). ``False``
+        size (Δδ15N, Δδ13C) integrated out exactly under its Normal prior,
+        start summed exactly over the knots). ``False``
         leaves the walk alone to carry diet changes.
     episodes
         ``False`` switches catabolism off (diet-only model: the likelihood is
@@ -466,28 +467,22 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             "extra_sd", sigma=pr["extra_sd"]["sigma"], dims=(dims.TISSUE, dims.ISOTOPE)
         )
 
-        # ---- one explicit diet shift (start summed out over the knots) ---------
-        shift = None
+        # ---- one explicit diet shift: start summed out over the knots, size integrated
+        # out exactly (it enters the Gaussian likelihood linearly), so that "an episode"
+        # and "a shift" are two terms of a sum, not two regions of a sampled size
         shift_starts = None
+        shift_prior = None
         if spec.diet_shift:
             shift_off = _phase("shift_phase", spec.shift_step_days, I, start)
             shift_starts = grid.shift_days + shift_off[:, None]
             sh_sd = pm.HalfNormal("shift_sd", sigma=pr["shift_sd"]["sigma"], dims=dims.ISOTOPE)
-            sh_rho = pt.tanh(
-                pm.Normal("shift_corr_z", pr["shift_corr"]["mu"], pr["shift_corr"]["sigma"])
-            )
-            z_sh = pm.Normal("z_shift", 0.0, 1.0, dims=(dims.INDIVIDUAL, dims.ISOTOPE))
-            shift = pm.Deterministic(
-                "shift",
-                pt.stack(
-                    [
-                        sh_sd[0] * z_sh[:, 0],
-                        sh_sd[1] * (sh_rho * z_sh[:, 0] + pt.sqrt(1.0 - sh_rho**2) * z_sh[:, 1]),
-                    ],
-                    axis=-1,
+            sh_rho = pm.Deterministic(
+                "shift_corr",
+                pt.tanh(
+                    pm.Normal("shift_corr_z", pr["shift_corr"]["mu"], pr["shift_corr"]["sigma"])
                 ),
-                dims=(dims.INDIVIDUAL, dims.ISOTOPE),
             )
+            shift_prior = (sh_sd, sh_rho)
 
         # ---- likelihood --------------------------------------------------
         params = forward.Params(
@@ -501,11 +496,13 @@ def build_model(tb: TimeBase, spec: ModelSpec | None = None) -> BuiltModel:
             disc=disc,
             rate=rate,
             growth=growth,
-            shift_size=shift,
+            shift_size=None,
             shift_start=shift_starts,
         )
         pred = forward.predict(tb, grid, params, xp=pt)
-        ll_none, ll_ep = forward.candidate_logliks(tb, pred, gamma, shift, extra_sd, xp=pt)
+        ll_none, ll_ep = forward.candidate_logliks(
+            tb, pred, gamma, None, extra_sd, xp=pt, shift_prior=shift_prior
+        )
         log_u = forward.shift_log_prior(grid, spec.diet_shift)
         if spec.episodes:
             lp0, lp1 = episode_mixture(

@@ -31,7 +31,8 @@ PARAM_NAMES = (
     "growth",
     "extra_sd",
     "p_episode_group",
-    "shift",
+    "shift_sd",
+    "shift_corr",
     "onset_phase_offset",
     "shift_phase_offset",
 )
@@ -97,13 +98,15 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
     )
     # Per draw, with the model's own likelihood tables (forward.py) and prior weights
     # (build.py): P(episode | parameters), then the episode indicator, the onset (given an
-    # episode) and the shift start (given the indicator), all drawn with one seeded stream.
+    # episode), the shift start (given the indicator) and the shift size (given both, from
+    # its conditional Normal), all drawn with one seeded stream.
     pi = flat["p_episode_group"][:, gi]
-    has_shift = "shift" in flat
+    has_shift = "shift_sd" in flat
     log_u = forward.shift_log_prior(grid, has_shift)
     rng = np.random.default_rng(seed)
     onset = np.zeros((n_s, n_i))
     start = np.zeros((n_s, n_i))
+    size = np.zeros((n_s, n_i, 2))
     mu = np.zeros((n_s, len(tb.groups)))
     rows = np.arange(n_i)
     M = grid.onset_days.shape[1]
@@ -115,9 +118,15 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
         onsets = grid.onset_days + onset_off[s][:, None]  # (I, M)
         starts = grid.shift_days + shift_off[s][:, None]  # (I, J)
         pred = predictions(built, d, s, onset=onsets, shift_start=starts if has_shift else None)
-        shift = flat["shift"][s] if has_shift else None
-        ll_none, ll_ep = forward.candidate_logliks(
-            tb, pred, d.gamma_ind[s], shift, flat["extra_sd"][s]
+        prior = (flat["shift_sd"][s], flat["shift_corr"][s]) if has_shift else None
+        ll_none, ll_ep, terms = forward.candidate_logliks(
+            tb,
+            pred,
+            d.gamma_ind[s],
+            None,
+            flat["extra_sd"][s],
+            shift_prior=prior,
+            return_terms=True,
         )
         logw_k = onset_log_weights_grid(
             grid, tb, built.mu_grid, flat["onset_sd"][s], offset=onset_off[s]
@@ -142,10 +151,14 @@ def collect(built: BuiltModel, idata: Any, max_draws: int = 1000, seed: int = 0)
         onset[s] = onsets[rows, k1 % M]
         j = np.where(z, k1 // M, k0)
         start[s] = starts[rows, j]
+        if terms is not None:  # the shift size given its start (and the episode's onset)
+            L = np.where(z[:, None], terms.L_episode[rows, j, k1 % M], terms.L_none[rows, j])
+            size[s] = forward.draw_shift(L, terms.Q[rows, j], *prior, rng)
     flat["onset_group"] = mu
     flat["onset"] = onset
     if has_shift:
         flat["shift_start"] = start
+        flat["shift"] = size
     return d
 
 

@@ -602,8 +602,79 @@ def expected(pred: Prediction, gamma, shift_size=None, episode=None) -> tuple[An
     return out[0], out[1]
 
 
+def shift_marginal(L, Q, sd, rho, xp: ModuleType = np):
+    """Log of the shift's Gaussian integral and its conditional precision.
+
+    For a log-likelihood ΔᵀL − ½ Σ_c Q_c Δ_c² in the shift size Δ (‰ per
+    isotope) and a prior Δ ~ Normal(0, Σ), Σ = [[σ₁², ρσ₁σ₂], [ρσ₁σ₂, σ₂²]],
+
+        log ∫ exp(ΔᵀL − ½ΔᵀQΔ) N(Δ; 0, Σ) dΔ = ½ LᵀP⁻¹L − ½ log|P| − ½ log|Σ|,
+
+    with P = Q + Σ⁻¹ (the conditional precision; the conditional mean is P⁻¹L).
+
+    Parameters
+    ----------
+    L, Q
+        ``(..., 2)`` linear and (diagonal) quadratic coefficients.
+    sd
+        ``(2,)`` prior SDs σ of the shift (‰).
+    rho
+        Prior correlation of the (δ15N, δ13C) shift.
+    xp
+        Array namespace.
+
+    Returns
+    -------
+    tuple
+        The log integral ``(...)`` and the precision entries ``(p11, p12, p22)``.
+    """
+    one_m = 1.0 - rho**2
+    a = 1.0 / (sd[0] ** 2 * one_m)
+    d = 1.0 / (sd[1] ** 2 * one_m)
+    b = -rho / (sd[0] * sd[1] * one_m)
+    p11, p22 = Q[..., 0] + a, Q[..., 1] + d
+    det = p11 * p22 - b**2
+    quad = (p22 * L[..., 0] ** 2 - 2.0 * b * L[..., 0] * L[..., 1] + p11 * L[..., 1] ** 2) / det
+    log_sigma = xp.log(sd[0] ** 2) + xp.log(sd[1] ** 2) + xp.log(one_m)
+    return 0.5 * quad - 0.5 * xp.log(det) - 0.5 * log_sigma, (p11, b, p22)
+
+
+def draw_shift(L, Q, sd, rho, rng: np.random.Generator) -> np.ndarray:
+    """Draw shift sizes Δ ``(..., 2)`` from their conditional Normal(P⁻¹L, P⁻¹) (NumPy)."""
+    _, (p11, p12, p22) = shift_marginal(L, Q, sd, rho)
+    det = p11 * p22 - p12**2
+    c11, c12, c22 = p22 / det, -p12 / det, p11 / det  # P⁻¹
+    m1, m2 = c11 * L[..., 0] + c12 * L[..., 1], c12 * L[..., 0] + c22 * L[..., 1]
+    z = rng.standard_normal(L.shape)
+    l11 = np.sqrt(c11)
+    l21 = c12 / l11
+    l22 = np.sqrt(np.maximum(c22 - l21**2, 0.0))
+    return np.stack([m1 + l11 * z[..., 0], m2 + l21 * z[..., 0] + l22 * z[..., 1]], axis=-1)
+
+
+@dataclass
+class ShiftTerms:
+    """Sufficient terms of the shift size in the likelihood (see :func:`candidate_logliks`).
+
+    ``L_none`` ``(I, J, 2)`` and ``L_episode`` ``(I, J, M, 2)`` are the linear
+    coefficients without and with an episode at each candidate onset, ``Q``
+    ``(I, J, 2)`` the quadratic ones (per isotope).
+    """
+
+    L_none: Any
+    L_episode: Any
+    Q: Any
+
+
 def candidate_logliks(
-    tb: TimeBase, pred: Prediction, gamma, shift_size, extra_sd, xp: ModuleType = np
+    tb: TimeBase,
+    pred: Prediction,
+    gamma,
+    shift_size,
+    extra_sd,
+    xp: ModuleType = np,
+    shift_prior: tuple[Any, Any] | None = None,
+    return_terms: bool = False,
 ):
     """Log-likelihood tables over candidate shift starts j and episode onsets m.
 
@@ -617,6 +688,11 @@ def candidate_logliks(
     with A = Σ_c Δ_c r_c/s²_c, B = Σ_c Δ_c²/s²_c, a = Σ_c g_c r_c/s²_c,
     b = Σ_c g_c²/s²_c, C = Σ_c Δ_c g_c/s²_c: every candidate pair costs a
     few products, and the cross term is one batched matrix product.
+
+    With ``shift_prior`` = (σ, ρ) instead of a shift size, Δ ~ Normal(0, Σ)
+    is integrated out exactly (:func:`shift_marginal`): per isotope c the
+    log-likelihood is Δ_c L_c − ½ Δ_c² Q_c with L_c = Σ_n s_nj (r_nc − g_c e_nm)/s²_nc
+    and Q_c = Σ_n s_nj²/s²_nc, one batched matrix product per isotope.
 
     Parameters
     ----------
@@ -633,13 +709,22 @@ def candidate_logliks(
         ``(n_tissues, 2)`` extra SD per tissue and isotope (‰).
     xp
         Array namespace.
+    shift_prior
+        ``(sd (2,), rho)`` of the shift's prior, to integrate Δ out (then
+        ``shift_size`` must be ``None``).
+    return_terms
+        Also return the :class:`ShiftTerms` (with ``shift_prior``).
 
     Returns
     -------
     tuple
         ``ll_none`` ``(I, J)`` (no episode) and ``ll_episode`` ``(I, J, M)``;
-        J = 1 without candidate shifts and M = 1 with one onset.
+        J = 1 without candidate shifts and M = 1 with one onset (and the
+        :class:`ShiftTerms` if ``return_terms``).
     """
+    if shift_prior is not None and shift_size is not None:
+        raise ValueError("give a shift size or a shift prior, not both")
+    marginal = shift_prior is not None
     ll0 = 0.0
     shift_gain = 0.0
     ep_gain = 0.0
@@ -647,6 +732,7 @@ def candidate_logliks(
     g = xp.stack([xp.ones_like(gamma * 1.0), gamma * 1.0], axis=-1)[:, None, :]  # (I, 1, 2)
     has_shift = shift_size is not None
     dv = shift_size[:, None, :] if has_shift else None
+    A_m = Q_m = X_m = None  # shift terms per isotope (marginal shift)
     for o, y0, ye, ys in (
         (tb.blood, pred.blood0, pred.blood_e, pred.blood_s),
         (tb.keratin, pred.keratin0, pred.keratin_e, pred.keratin_s),
@@ -674,11 +760,47 @@ def candidate_logliks(
                 cross = cross + np.einsum("inj,inm->ijm", sc, e)
             else:
                 cross = cross + xp.matmul(sc.dimshuffle(0, 2, 1), e)
+        if marginal and ys is not None:
+            sj = ys if ys.ndim == 3 else ys[..., None]  # (I, N, J)
+            terms = []
+            for c in range(2):
+                ws = sj * inv[..., c][..., None]  # (I, N, J)
+                A_c = xp.sum(ws * resid[..., c][..., None], axis=1)  # (I, J)
+                Q_c = xp.sum(ws * sj, axis=1)
+                if xp is np:
+                    X_c = np.einsum("inj,inm->ijm", ws, e)
+                else:
+                    X_c = xp.matmul(ws.dimshuffle(0, 2, 1), e)  # (I, J, M)
+                terms.append((A_c, Q_c, X_c))
+            if A_m is None:
+                A_m, Q_m, X_m = (list(t) for t in zip(*terms, strict=True))
+            else:
+                for c in range(2):
+                    A_m[c] = A_m[c] + terms[c][0]
+                    Q_m[c] = Q_m[c] + terms[c][1]
+                    X_m[c] = X_m[c] + terms[c][2]
     ll0 = ll0[:, None] if getattr(ll0, "ndim", 0) == 1 else xp.zeros((tb.n_individuals, 1))
     if getattr(shift_gain, "ndim", 0) == 0:
         shift_gain = xp.zeros((tb.n_individuals, 1))
     if getattr(ep_gain, "ndim", 0) == 0:
         ep_gain = xp.zeros((tb.n_individuals, 1))
+    if marginal and A_m is not None:
+        sd, rho = shift_prior
+        g2 = g[:, 0, :]  # (I, 2)
+        L_none = xp.stack(A_m, axis=-1)  # (I, J, 2)
+        Q = xp.stack(Q_m, axis=-1)
+        L_ep = xp.stack(
+            [A_m[c][:, :, None] - g2[:, c][:, None, None] * X_m[c] for c in range(2)], axis=-1
+        )  # (I, J, M, 2)
+        m_none, _ = shift_marginal(L_none, Q, sd, rho, xp=xp)
+        m_ep, _ = shift_marginal(L_ep, Q[:, :, None, :], sd, rho, xp=xp)
+        ll_none = ll0 + m_none
+        ll_episode = ll0[:, :, None] + ep_gain[:, None, :] + m_ep
+        if return_terms:
+            return ll_none, ll_episode, ShiftTerms(L_none=L_none, L_episode=L_ep, Q=Q)
+        return ll_none, ll_episode
     ll_none = ll0 + shift_gain  # (I, J)
     ll_episode = ll_none[:, :, None] + ep_gain[:, None, :] - cross  # (I, J, M)
+    if return_terms:
+        return ll_none, ll_episode, None
     return ll_none, ll_episode
