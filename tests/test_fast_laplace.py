@@ -64,3 +64,25 @@ def test_negative_curvature_is_made_positive():
     assert lap.n_floored == 1
     cov = lap.covariance()
     np.testing.assert_allclose(np.diag(cov), [0.5, 2.0], rtol=1e-6)
+
+
+def test_mode_search_steps_back_from_points_where_the_density_is_not_finite():
+    # a density (pseudo-Huber, flat far out, so the search overshoots) that is NaN beyond
+    # x = 3.2 in any coordinate, as a model's can be away from its mode: the search must
+    # reach the mode at 3 (it stopped at -2 before: a NaN point was given a zero gradient)
+    from nstress.model.fast import find_mode
+
+    seen_nan = []
+
+    def logp_grad(x):
+        if np.any(x > 3.2):
+            seen_nan.append(True)
+            return np.nan, np.full_like(x, np.nan)
+        u = x - 3.0
+        return -float(np.sum(np.sqrt(1.0 + u**2))), -u / np.sqrt(1.0 + u**2)
+
+    x, info = find_mode(logp_grad, np.full(5, -40.0), gtol=1e-6)
+    assert seen_nan  # the search did step into the NaN region
+    assert np.all(np.isfinite(x)) and np.isfinite(info["logp"])
+    np.testing.assert_allclose(x, 3.0, atol=1e-4)
+    assert info["converged"]

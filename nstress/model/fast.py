@@ -311,6 +311,7 @@ def find_mode(
     x0: np.ndarray,
     maxiter: int = 5000,
     gtol: float = 1.0,
+    restarts: int = 5,
 ) -> tuple[np.ndarray, dict[str, Any]]:
     """Maximise a log density with L-BFGS (SciPy).
 
@@ -324,6 +325,9 @@ def find_mode(
         Iterations at most.
     gtol
         Converged when max |gradient| ≤ ``gtol``.
+    restarts
+        Restarts from the best point seen when the optimiser stopped short
+        of a mode but had improved.
 
     Returns
     -------
@@ -334,40 +338,64 @@ def find_mode(
     from scipy.optimize import minimize
 
     n_eval = 0
+    best: dict[str, Any] = {"lp": -np.inf, "x": np.asarray(x0, float), "g": None}
 
     def fun(x: np.ndarray) -> tuple[float, np.ndarray]:
+        # A point where the density or its gradient is not finite is returned as a very
+        # high value with the last good gradient (not zero: a zero gradient there made
+        # L-BFGS-B stop at once, "converged", on NaN); its line search then steps back.
         nonlocal n_eval
         n_eval += 1
         lp, g = logp_grad(x)
-        if not np.isfinite(lp):
-            return 1e300, np.zeros_like(x)
-        return -float(lp), -np.asarray(g, float)
+        g = np.asarray(g, float)
+        if not (np.isfinite(lp) and np.all(np.isfinite(g))):
+            g_last = best["g"] if best["g"] is not None else np.ones_like(x)
+            return 1e300, -g_last
+        if lp > best["lp"]:
+            best.update(lp=float(lp), x=np.array(x, float), g=g)
+        return -float(lp), -g
 
-    res = minimize(
-        fun,
-        np.asarray(x0, float),
-        jac=True,
-        method="L-BFGS-B",
-        options={
-            "maxiter": maxiter,
-            "maxcor": 30,
-            "gtol": gtol,
-            "ftol": 1e-13,
-            "maxfun": 2 * maxiter,
-        },
-    )
-    lp, g = logp_grad(res.x)
+    # restarted from the best point while it stops short of a mode but still improves
+    # (a stop at a non-finite point ends the run with "relative reduction of f")
+    x_start = np.asarray(x0, float)
+    nit = 0
+    for _ in range(restarts + 1):
+        before = best["lp"]
+        res = minimize(
+            fun,
+            x_start,
+            jac=True,
+            method="L-BFGS-B",
+            options={
+                "maxiter": maxiter - nit,
+                "maxcor": 30,
+                "gtol": gtol,
+                "ftol": 1e-13,
+                "maxfun": 2 * maxiter,
+            },
+        )
+        nit += int(res.nit)
+        g_best = best["g"]
+        done = g_best is not None and float(np.max(np.abs(g_best))) <= gtol
+        if done or nit >= maxiter or not best["lp"] > before + 1e-9:
+            break
+        x_start = best["x"]
+    x_end = res.x
+    lp, g = logp_grad(x_end)
+    if not (np.isfinite(lp) and np.all(np.isfinite(g))) or lp < best["lp"]:
+        x_end = best["x"]  # the best point seen
+        lp, g = logp_grad(x_end)
     gmax = float(np.max(np.abs(g))) if g.size else 0.0
     info = {
         "converged": bool(np.isfinite(lp) and gmax <= gtol),
         "optimizer_success": bool(res.success),
-        "iterations": int(res.nit),
+        "iterations": nit,
         "evaluations": int(n_eval),
         "grad_max": gmax,
         "logp": float(lp),
         "message": str(res.message),
     }
-    return res.x, info
+    return x_end, info
 
 
 @dataclass
