@@ -95,6 +95,16 @@ def _number_or_text(value: str) -> float | str:
         return value
 
 
+def _settings(items: list[str]) -> dict:
+    """``NAME=VALUE`` options as a dict (``true``/``false`` as booleans, numbers as floats)."""
+    out: dict = {}
+    for item in items:
+        key, value = item.split("=", 1)
+        low = value.strip().lower()
+        out[key] = low == "true" if low in ("true", "false") else _number_or_text(value)
+    return out
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__)
     ap.add_argument("--n", type=int, default=36)
@@ -126,16 +136,8 @@ def main(argv: list[str] | None = None) -> int:
         help="passed to the sampler, e.g. --sampler-kw low_rank_modified_mass_matrix=true",
     )
     a = ap.parse_args(argv)
-    sampler_kw: dict = {}
-    for item in a.sampler_kw:
-        key, value = item.split("=", 1)
-        low = value.strip().lower()
-        sampler_kw[key] = low == "true" if low in ("true", "false") else _number_or_text(value)
-    model: dict = {}
-    for item in a.model:
-        key, value = item.split("=", 1)
-        low = value.strip().lower()
-        model[key] = low == "true" if low in ("true", "false") else _number_or_text(value)
+    sampler_kw = _settings(a.sampler_kw)
+    model = _settings(a.model)
     priors: dict = {}
     for item in a.prior:
         key, value = item.split("=", 1)

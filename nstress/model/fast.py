@@ -355,6 +355,9 @@ def find_mode(
             best.update(lp=float(lp), x=np.array(x, float), g=g)
         return -float(lp), -g
 
+    def at_mode() -> bool:
+        return best["g"] is not None and float(np.max(np.abs(best["g"]), initial=0.0)) <= gtol
+
     # restarted from the best point while it stops short of a mode but still improves
     # (a stop at a non-finite point ends the run with "relative reduction of f")
     x_start = np.asarray(x0, float)
@@ -375,16 +378,13 @@ def find_mode(
             },
         )
         nit += int(res.nit)
-        g_best = best["g"]
-        done = g_best is not None and float(np.max(np.abs(g_best))) <= gtol
-        if done or nit >= maxiter or not best["lp"] > before + 1e-9:
+        if at_mode() or nit >= maxiter or not best["lp"] > before + 1e-9:
             break
         x_start = best["x"]
-    x_end = res.x
-    lp, g = logp_grad(x_end)
-    if not (np.isfinite(lp) and np.all(np.isfinite(g))) or lp < best["lp"]:
-        x_end = best["x"]  # the best point seen
-        lp, g = logp_grad(x_end)
+    # the best finite point seen (L-BFGS-B's own end point is one of those it evaluated)
+    x_end = best["x"]
+    lp, g = (best["lp"], best["g"]) if best["g"] is not None else logp_grad(x_end)
+    g = np.asarray(g, float)
     gmax = float(np.max(np.abs(g))) if g.size else 0.0
     info = {
         "converged": bool(np.isfinite(lp) and gmax <= gtol),

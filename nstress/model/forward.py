@@ -602,15 +602,28 @@ def expected(pred: Prediction, gamma, shift_size=None, episode=None) -> tuple[An
     return out[0], out[1]
 
 
+def shift_precision(Q, sd, rho) -> tuple[Any, Any, Any]:
+    """Entries ``(p11, p12, p22)`` of the shift's conditional precision P = diag(Q) + Σ⁻¹.
+
+    Σ = [[σ₁², ρσ₁σ₂], [ρσ₁σ₂, σ₂²]] is the prior covariance of the shift size
+    (``sd`` = (σ₁, σ₂) in ‰, ``rho`` = ρ); ``Q`` ``(..., 2)`` the likelihood's
+    quadratic coefficients per isotope.
+    """
+    one_m = 1.0 - rho**2
+    p12 = -rho / (sd[0] * sd[1] * one_m)
+    return Q[..., 0] + 1.0 / (sd[0] ** 2 * one_m), p12, Q[..., 1] + 1.0 / (sd[1] ** 2 * one_m)
+
+
 def shift_marginal(L, Q, sd, rho, xp: ModuleType = np):
-    """Log of the shift's Gaussian integral and its conditional precision.
+    """Log of the shift's Gaussian integral.
 
     For a log-likelihood ΔᵀL − ½ Σ_c Q_c Δ_c² in the shift size Δ (‰ per
     isotope) and a prior Δ ~ Normal(0, Σ), Σ = [[σ₁², ρσ₁σ₂], [ρσ₁σ₂, σ₂²]],
 
         log ∫ exp(ΔᵀL − ½ΔᵀQΔ) N(Δ; 0, Σ) dΔ = ½ LᵀP⁻¹L − ½ log|P| − ½ log|Σ|,
 
-    with P = Q + Σ⁻¹ (the conditional precision; the conditional mean is P⁻¹L).
+    with P = Q + Σ⁻¹ the conditional precision (:func:`shift_precision`; the
+    conditional mean is P⁻¹L).
 
     Parameters
     ----------
@@ -625,23 +638,19 @@ def shift_marginal(L, Q, sd, rho, xp: ModuleType = np):
 
     Returns
     -------
-    tuple
-        The log integral ``(...)`` and the precision entries ``(p11, p12, p22)``.
+    array
+        The log integral ``(...)``.
     """
-    one_m = 1.0 - rho**2
-    a = 1.0 / (sd[0] ** 2 * one_m)
-    d = 1.0 / (sd[1] ** 2 * one_m)
-    b = -rho / (sd[0] * sd[1] * one_m)
-    p11, p22 = Q[..., 0] + a, Q[..., 1] + d
+    p11, b, p22 = shift_precision(Q, sd, rho)
     det = p11 * p22 - b**2
     quad = (p22 * L[..., 0] ** 2 - 2.0 * b * L[..., 0] * L[..., 1] + p11 * L[..., 1] ** 2) / det
-    log_sigma = xp.log(sd[0] ** 2) + xp.log(sd[1] ** 2) + xp.log(one_m)
-    return 0.5 * quad - 0.5 * xp.log(det) - 0.5 * log_sigma, (p11, b, p22)
+    log_sigma = xp.log(sd[0] ** 2) + xp.log(sd[1] ** 2) + xp.log(1.0 - rho**2)
+    return 0.5 * quad - 0.5 * xp.log(det) - 0.5 * log_sigma
 
 
 def draw_shift(L, Q, sd, rho, rng: np.random.Generator) -> np.ndarray:
     """Draw shift sizes Δ ``(..., 2)`` from their conditional Normal(P⁻¹L, P⁻¹) (NumPy)."""
-    _, (p11, p12, p22) = shift_marginal(L, Q, sd, rho)
+    p11, p12, p22 = shift_precision(Q, sd, rho)
     det = p11 * p22 - p12**2
     c11, c12, c22 = p22 / det, -p12 / det, p11 / det  # P⁻¹
     m1, m2 = c11 * L[..., 0] + c12 * L[..., 1], c12 * L[..., 0] + c22 * L[..., 1]
@@ -664,6 +673,13 @@ class ShiftTerms:
     L_none: Any
     L_episode: Any
     Q: Any
+
+
+def _over_samples(a, b, xp: ModuleType = np):
+    """``Σ_n a[i, n, j] · b[i, n, m]`` ``(I, J, M)``: one batched matrix product."""
+    if xp is np:
+        return np.einsum("inj,inm->ijm", a, b)
+    return xp.matmul(a.dimshuffle(0, 2, 1), b)
 
 
 def candidate_logliks(
@@ -732,7 +748,9 @@ def candidate_logliks(
     g = xp.stack([xp.ones_like(gamma * 1.0), gamma * 1.0], axis=-1)[:, None, :]  # (I, 1, 2)
     has_shift = shift_size is not None
     dv = shift_size[:, None, :] if has_shift else None
-    A_m = Q_m = X_m = None  # shift terms per isotope (marginal shift)
+    # shift terms per isotope (marginal shift), summed over the observation sets
+    A_m, Q_m, X_m = [0.0, 0.0], [0.0, 0.0], [0.0, 0.0]
+    seen_shift = False
     for o, y0, ye, ys in (
         (tb.blood, pred.blood0, pred.blood_e, pred.blood_s),
         (tb.keratin, pred.keratin0, pred.keratin_e, pred.keratin_s),
@@ -749,42 +767,26 @@ def candidate_logliks(
         a = xp.sum(g * resid * inv, axis=2)[..., None]
         bq = xp.sum(g**2 * inv, axis=2)[..., None]
         ep_gain = ep_gain + xp.sum(e * a - 0.5 * e**2 * bq, axis=1)  # (I, M)
-        if has_shift and ys is not None:
-            sj = ys if ys.ndim == 3 else ys[..., None]  # (I, N, J)
+        sj = None if ys is None else (ys if ys.ndim == 3 else ys[..., None])  # (I, N, J)
+        if has_shift and sj is not None:
             A = xp.sum(dv * resid * inv, axis=2)[..., None]
             B = xp.sum(dv**2 * inv, axis=2)[..., None]
             C = xp.sum(dv * g * inv, axis=2)[..., None]
             shift_gain = shift_gain + xp.sum(sj * A - 0.5 * sj**2 * B, axis=1)  # (I, J)
-            sc = sj * C
-            if xp is np:
-                cross = cross + np.einsum("inj,inm->ijm", sc, e)
-            else:
-                cross = cross + xp.matmul(sc.dimshuffle(0, 2, 1), e)
-        if marginal and ys is not None:
-            sj = ys if ys.ndim == 3 else ys[..., None]  # (I, N, J)
-            terms = []
+            cross = cross + _over_samples(sj * C, e, xp)
+        if marginal and sj is not None:
+            seen_shift = True
             for c in range(2):
                 ws = sj * inv[..., c][..., None]  # (I, N, J)
-                A_c = xp.sum(ws * resid[..., c][..., None], axis=1)  # (I, J)
-                Q_c = xp.sum(ws * sj, axis=1)
-                if xp is np:
-                    X_c = np.einsum("inj,inm->ijm", ws, e)
-                else:
-                    X_c = xp.matmul(ws.dimshuffle(0, 2, 1), e)  # (I, J, M)
-                terms.append((A_c, Q_c, X_c))
-            if A_m is None:
-                A_m, Q_m, X_m = (list(t) for t in zip(*terms, strict=True))
-            else:
-                for c in range(2):
-                    A_m[c] = A_m[c] + terms[c][0]
-                    Q_m[c] = Q_m[c] + terms[c][1]
-                    X_m[c] = X_m[c] + terms[c][2]
+                A_m[c] = A_m[c] + xp.sum(ws * resid[..., c][..., None], axis=1)  # (I, J)
+                Q_m[c] = Q_m[c] + xp.sum(ws * sj, axis=1)
+                X_m[c] = X_m[c] + _over_samples(ws, e, xp)  # (I, J, M)
     ll0 = ll0[:, None] if getattr(ll0, "ndim", 0) == 1 else xp.zeros((tb.n_individuals, 1))
     if getattr(shift_gain, "ndim", 0) == 0:
         shift_gain = xp.zeros((tb.n_individuals, 1))
     if getattr(ep_gain, "ndim", 0) == 0:
         ep_gain = xp.zeros((tb.n_individuals, 1))
-    if marginal and A_m is not None:
+    if marginal and seen_shift:
         sd, rho = shift_prior
         g2 = g[:, 0, :]  # (I, 2)
         L_none = xp.stack(A_m, axis=-1)  # (I, J, 2)
@@ -792,8 +794,8 @@ def candidate_logliks(
         L_ep = xp.stack(
             [A_m[c][:, :, None] - g2[:, c][:, None, None] * X_m[c] for c in range(2)], axis=-1
         )  # (I, J, M, 2)
-        m_none, _ = shift_marginal(L_none, Q, sd, rho, xp=xp)
-        m_ep, _ = shift_marginal(L_ep, Q[:, :, None, :], sd, rho, xp=xp)
+        m_none = shift_marginal(L_none, Q, sd, rho, xp=xp)
+        m_ep = shift_marginal(L_ep, Q[:, :, None, :], sd, rho, xp=xp)
         ll_none = ll0 + m_none
         ll_episode = ll0[:, :, None] + ep_gain[:, None, :] + m_ep
         if return_terms:
