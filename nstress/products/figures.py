@@ -489,3 +489,85 @@ def onset_figure(screening: pd.DataFrame) -> Figure:
     ax.set_title("Onset of episodes (median and 90 % interval)", fontsize=10)
     fig.tight_layout()
     return fig
+
+
+def power_figure(table: pd.DataFrame, power: float = 0.8, approximate: bool = True) -> Figure:
+    """Plot detection probability and onset error of a power analysis (``nstress power``).
+
+    Parameters
+    ----------
+    table
+        One row per sampling design × fast scenario (``segment_mm``,
+        ``draw_interval_days``, ``fast_days``, ``rate_per_day``, ``detected``,
+        ``detected_lo90``, ``detected_hi90``, ``onset_error_median_days``).
+    power
+        Detection share drawn as the reference line.
+    approximate
+        Say in the title that the fits were the fast approximate mode.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Columns: blood-draw intervals. Top: share of fasting animals
+        detected (90 % interval as error bars); bottom: median onset error.
+        The x axis is the segment length when several were simulated, else
+        the fast length; lines are the other scenario values (colour and
+        marker both differ, so nothing relies on colour alone).
+    """
+    intervals = sorted(table["draw_interval_days"].unique())
+    by_segment = table["segment_mm"].nunique() > 1
+    x_col, x_label = (
+        ("segment_mm", "segment length (mm)") if by_segment else ("fast_days", "fast length (d)")
+    )
+    line_keys = ["fast_days", "rate_per_day"] if by_segment else ["segment_mm", "rate_per_day"]
+    fig, axes = plt.subplots(
+        2, len(intervals), figsize=(4.2 * len(intervals) + 1.8, 6.2), squeeze=False, sharex=True
+    )
+    markers = ["o", "s", "^", "D", "v", "P", "X", "*"]
+    lines = table[line_keys].drop_duplicates().sort_values(line_keys).to_numpy()
+    for c, interval in enumerate(intervals):
+        sub = table[table["draw_interval_days"] == interval]
+        top, bottom = axes[0, c], axes[1, c]
+        for n, key in enumerate(lines):
+            g = sub[(sub[line_keys[0]] == key[0]) & (sub[line_keys[1]] == key[1])].sort_values(
+                x_col
+            )
+            if not len(g):
+                continue
+            colour = TISSUE_COLOURS[n % len(TISSUE_COLOURS)]
+            marker = markers[n % len(markers)]
+            label = (
+                f"{key[0]:g} d fast, {key[1]:g} ‰/d"
+                if by_segment
+                else f"{key[0]:g} mm segments, {key[1]:g} ‰/d"
+            )
+            yerr = np.vstack(
+                [g["detected"] - g["detected_lo90"], g["detected_hi90"] - g["detected"]]
+            )
+            top.errorbar(
+                g[x_col],
+                g["detected"],
+                yerr=yerr,
+                color=colour,
+                marker=marker,
+                lw=1.3,
+                capsize=3,
+                label=label,
+            )
+            bottom.plot(g[x_col], g["onset_error_median_days"], color=colour, marker=marker, lw=1.3)
+        top.axhline(power, color=GREY, ls="--", lw=1.0)
+        top.set_ylim(-0.03, 1.03)
+        top.set_title(
+            f"blood every {interval:g} d" if interval else "keratin only (no blood)", fontsize=10
+        )
+        top.grid(alpha=0.3)
+        bottom.grid(alpha=0.3)
+        bottom.set_xlabel(x_label)
+        bottom.set_ylim(bottom=0)
+    axes[0, 0].set_ylabel(f"fasts detected (share; dashed: {power:.0%})")
+    axes[1, 0].set_ylabel("median onset error (d)")
+    axes[0, -1].legend(fontsize=7, frameon=False, loc="center left", bbox_to_anchor=(1.02, 0.5))
+    what = "approximate fast screening fits" if approximate else "full NUTS fits"
+    fig.suptitle(f"Power of the sampling design (simulated animals, {what})", fontsize=10)
+    fig.tight_layout()
+    return fig

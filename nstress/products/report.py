@@ -463,6 +463,83 @@ def _diagnostics(fits: list[FitFiles], pngs: dict[str, Path]) -> str:
     return "".join(parts)
 
 
+POWER_DIR = "power"
+"""Sub-directory of a run (or of the report's directory) that holds a power analysis."""
+
+
+def _power(out_dir: Path) -> str:
+    """Render the detection limit of the data's sampling design (when a power analysis ran)."""
+    parts = ['<section id="power"><h2>What this sampling design can detect</h2>']
+    doc_path = Path(out_dir) / POWER_DIR / "power.json"
+    if not doc_path.exists():
+        parts.append(
+            "<p>No power analysis in this run. Add a <code>[design]</code> section to the "
+            "workflow file (or run <code>nstress power</code>) to learn how long and how strong "
+            "a fast must be for this sampling design to detect it; a clear status is only as "
+            "good as that limit.</p></section>"
+        )
+        return "".join(parts)
+    doc = json.loads(doc_path.read_text())
+    info, design = doc.get("info", {}), doc.get("design", {})
+    observed = info.get("observed")
+    if observed:
+        seg = observed.get("segment_mm")
+        blood = observed.get("draw_interval_days") or 0
+        parts.append(
+            "<p>The data's own design: "
+            f"{_e(observed.get('keratin_tissue'))} cut into {_num(seg, '{:.2g}')} mm segments "
+            f"(median; about {_num(seg / info['growth_mm_per_day'], '{:.0f}')} days each at "
+            f"{_num(info.get('growth_mm_per_day'), '{:g}')} mm/d), "
+            + (
+                f"blood ({_e(', '.join(observed.get('blood_tissues', [])))}) drawn about every "
+                f"{blood} days."
+                if blood
+                else "no serial blood."
+            )
+            + "</p>"
+        )
+    mode = (
+        "approximate fast-screening fits (conservative next to full NUTS)"
+        if info.get("approximate")
+        else "full NUTS fits"
+    )
+    parts.append(
+        f"<p>Simulated with the model's own equations: {design.get('animals')} fasting and "
+        f"{design.get('controls')} non-fasting animals per scenario, {_e(mode)}; a fast counts "
+        "as detected when the screening calls the animal catabolic.</p><ul>"
+        + "".join(f"<li>{_e(t)}</li>" for t in doc.get("limits", []))
+        + "</ul>"
+    )
+    table_path = doc_path.with_name("power.csv")
+    if table_path.exists():
+        t = pd.read_csv(table_path)
+        shown = pd.DataFrame(
+            {
+                "segment (mm)": t["segment_mm"].map(lambda v: f"{v:g}"),
+                "blood every (d)": t["draw_interval_days"].map(lambda v: f"{v:g}" if v else "-"),
+                "fast (d)": t["fast_days"].map(lambda v: f"{v:g}"),
+                "rate (‰/d)": t["rate_per_day"].map(lambda v: f"{v:g}"),
+                "detected": [
+                    f"{d:.0%} [{lo:.0%}–{hi:.0%}]"
+                    for d, lo, hi in zip(
+                        t["detected"], t["detected_lo90"], t["detected_hi90"], strict=True
+                    )
+                ],
+                "onset error (d, median)": t["onset_error_median_days"].map(_num),
+                "controls flagged": t["false_flag_share"].map(lambda v: _num(v, "{:.0%}")),
+            }
+        )
+        parts.append(_table(shown, "plain"))
+    png = doc_path.with_name("power.png")
+    if png.exists():
+        parts.append(f"<figure>{_img(png, 'power of the sampling design')}</figure>")
+    parts.append(
+        "<p>A fast shorter or weaker than this limit can go unseen: for such animals "
+        "<em>clear</em> means “no detectable fast”, not “did not fast”.</p></section>"
+    )
+    return "".join(parts)
+
+
 _EQUATIONS = """
 <ul>
 <li>Diet D(t) = (δ¹⁵N, δ¹³C) of assimilated food: an individual level (pooled within group) plus
@@ -738,6 +815,7 @@ def write_report(fit_dirs: list[Path], out_dir: Path, title: str | None = None) 
             ("screening", "Screening"),
             ("individuals", "Individuals"),
             ("diagnostics", "Diagnostics"),
+            ("power", "Design power"),
             ("methods", "Methods"),
             ("provenance", "Provenance"),
         )
@@ -757,6 +835,7 @@ def write_report(fit_dirs: list[Path], out_dir: Path, title: str | None = None) 
         + _screening_table(sc, anchors, len(fits) > 1)
         + _individuals(sc, anchors, pngs)
         + _diagnostics(fits, pngs)
+        + _power(out_dir)
         + methods
         + _references(texts)
         + _provenance(fits)

@@ -781,3 +781,107 @@ register(
         epilog=_RENDER_EPILOG,
     )
 )
+
+
+# ---------------------------------------------------------------- power
+
+_POWER_EPILOG = (
+    """\
+examples:
+  nstress power --out plan/                                  # the default grid
+  nstress power --segment-mm 1 3 6 --fast-days 10 20 40 --rate 0.03 0.06 --out plan/
+  nstress power --segment-mm 2 --draw-interval-days 0 7 14 --tissue whisker --out plan/
+  nstress power season.toml --out plan/        # the workflow's [design], tissues and priors
+
+Simulates animals that fast for each length and rate (and animals that do
+not), sampled with each design, fits them (the fast screening mode unless
+--nuts) and writes power.csv (detection share with its 90 % interval, median
+onset error, controls flagged), power_limits.csv, power.png/svg and
+power.json (last) into DIR. A fast counts as detected when the screening
+calls the animal catabolic. A few animals per cell give coarse shares:
+raise --animals for a decision.
+
+"""
+    + EXIT_CODES
+)
+
+
+def _power_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "workflow",
+        nargs="?",
+        type=Path,
+        metavar="WORKFLOW",
+        help="workflow file whose [design], tissues, growth, priors and screening are used",
+    )
+    p.add_argument("--out", metavar="DIR", type=Path, required=True, help="output directory")
+    many = {"nargs": "+", "type": float, "default": None}
+    p.add_argument("--segment-mm", metavar="MM", help="segment lengths (mm)", **many)
+    p.add_argument(
+        "--draw-interval-days",
+        metavar="D",
+        nargs="+",
+        type=int,
+        default=None,
+        help="days between blood draws (0 = no blood)",
+    )
+    p.add_argument("--fast-days", metavar="D", help="fast lengths (days)", **many)
+    p.add_argument("--rate", metavar="R", help="enrichment rates (‰ δ15N per day)", **many)
+    p.add_argument("--animals", type=int, help="fasting animals per cell (default 6)")
+    p.add_argument("--controls", type=int, help="non-fasting animals per cell (default 2)")
+    p.add_argument("--tissue", help="keratin tissue cut into segments (default whisker)")
+    p.add_argument("--record-mm", type=float, help="keratin length analysed (mm, default 30)")
+    p.add_argument("--nuts", action="store_true", help="fit with full NUTS (slow), not --fast")
+    p.add_argument("--seed", type=int, help="seed of the simulations (default 1)")
+    _verbosity(p)
+
+
+def _run_power(args: argparse.Namespace) -> int:
+    from nstress.workflow.config import load_workflow
+    from nstress.workflow.pipeline import FitConfig
+    from nstress.workflow.power import describe_limits, design_from_section, run_power, write_power
+
+    progress = Progress(args.quiet, args.verbose)
+    section: dict[str, Any] = {}
+    fit = FitConfig()
+    if args.workflow is not None:
+        wf = load_workflow(args.workflow)
+        section, fit = dict(wf.design or {}), wf.fit
+    given = {
+        "segment_mm": args.segment_mm,
+        "draw_interval_days": args.draw_interval_days,
+        "fast_days": args.fast_days,
+        "rate_per_day": args.rate,
+        "animals": args.animals,
+        "controls": args.controls,
+        "keratin_tissue": args.tissue,
+        "record_mm": args.record_mm,
+        "seed": args.seed,
+        "method": "nuts" if args.nuts else None,
+    }
+    section.update({k: v for k, v in given.items() if v is not None})
+    design = design_from_section(section)
+    cells = len(design.segment_mm) * len(design.draw_interval_days)
+    progress(
+        f"{cells} sampling design(s) x {len(design.fast_days) * len(design.rate_per_day)} "
+        f"fast scenario(s), {design.animals} + {design.controls} animals each"
+    )
+    result = run_power(design, fit, log=progress)
+    write_power(result, args.out)
+    for line in describe_limits(result.limits, design.power):
+        print(line)
+    print(f"wrote {args.out} (power.csv, power_limits.csv, power.png, power.json)")
+    return EXIT_OK
+
+
+register(
+    Command(
+        name="power",
+        help="plan a sampling design: how often a fast of X days at Y ‰/d would be detected",
+        add_arguments=_power_arguments,
+        run=_run_power,
+        description="Power analysis of a sampling design by simulation: detection share and "
+        "onset error of fasts against segment length, blood-draw interval, fast length and rate.",
+        epilog=_POWER_EPILOG,
+    )
+)

@@ -63,6 +63,20 @@ Settings that change results (they are hashed; a change refits):
     Pass marks: ``rhat_max``, ``ess_bulk_min``, ``ess_tail_min``,
     ``divergences_max``, ``ppc_coverage_min``.
 
+The power analysis (``nstress power``; not part of a fit, so not hashed):
+
+``[design]``
+    The sampling designs and fasts to simulate: ``segment_mm``,
+    ``draw_interval_days`` (0 = no blood), ``fast_days``, ``rate_per_day``
+    (a number or an array of numbers each), ``animals`` (fasting animals per
+    cell, default 6), ``controls`` (non-fasting, default 2),
+    ``keratin_tissue`` (default ``"whisker"``), ``record_mm`` (keratin
+    length analysed, default 30), ``blood_tissues``, ``blood_window_days``,
+    ``method`` (``"fast"``, default, or ``"nuts"``), ``power`` (detection
+    share of the detection limit, default 0.8), ``seed``, ``for_data``
+    (default true: ``nstress run`` also simulates the data's own design and
+    the report quotes its detection limit).
+
 Settings that only change how a run executes (not hashed):
 
 ``[outputs]``
@@ -140,13 +154,16 @@ class Setting:
         ``"int"``, ``"number"``, ``"bool"``, ``"text"``, ``"texts"`` (text or
         an array of text), ``"pair"`` (two numbers), ``"numbers"`` (a table
         of numbers), ``"scalars"`` (a table of numbers, text, true/false) or
-        ``"table"`` (checked elsewhere).
+        ``"table"`` (checked elsewhere), ``"values"`` (a number or an array of
+        them, each of kind ``item``, default ``"number"``, within the bounds).
     low, high
         Inclusive bounds of a number.
     above
         Exclusive lower bound of a number.
     choices
         The allowed texts.
+    item
+        Kind of each element of ``"values"`` (``"int"`` or ``"number"``).
     """
 
     kind: str
@@ -154,6 +171,7 @@ class Setting:
     high: float | None = None
     above: float | None = None
     choices: tuple[str, ...] = ()
+    item: str = ""
 
     def check(self, value: Any, key: str, file: str | None) -> Any:
         """Return ``value`` if it fits this setting, else raise :class:`ConfigError`."""
@@ -190,6 +208,12 @@ class Setting:
             if not texts or not items:
                 raise fail("text or a non-empty array of text")
             return list(items)
+        if self.kind == "values":
+            items = value if isinstance(value, list) else [value]
+            if not items:
+                raise fail("a number or a non-empty array of numbers")
+            item = Setting(self.item or "number", low=self.low, above=self.above)
+            return [item.check(v, f"{key}[{i}]", file) for i, v in enumerate(items)]
         if self.kind == "pair":
             if not (isinstance(value, list) and len(value) == 2):
                 raise fail("an array of two numbers")
@@ -297,6 +321,22 @@ def _schema() -> dict[str, dict[str, Setting]]:
         },
         "screening": {f.name: NONNEG for f in dataclasses.fields(ScreeningRules)},
         "diagnostics": {f.name: NONNEG for f in dataclasses.fields(Thresholds)},
+        "design": {
+            "segment_mm": Setting("values", above=0),
+            "draw_interval_days": Setting("values", item="int", low=0),
+            "fast_days": Setting("values", above=0),
+            "rate_per_day": Setting("values", above=0),
+            "animals": COUNT,
+            "controls": Setting("int", low=0),
+            "keratin_tissue": TEXT,
+            "record_mm": POSITIVE,
+            "blood_tissues": Setting("texts"),
+            "blood_window_days": COUNT,
+            "method": Setting("text", choices=("fast", "nuts")),
+            "power": Setting("number", above=0, high=0.999),
+            "seed": Setting("int", low=0),
+            "for_data": FLAG,
+        },
         "outputs": {"run_dir": TEXT, "unit_reports": FLAG},
         "execution": {
             "workers": Setting("int", low=0),
@@ -321,11 +361,13 @@ SECTIONS = (
     "sampler",
     "screening",
     "diagnostics",
+    "design",
     "outputs",
     "execution",
 )
-EXECUTION_SECTIONS = ("workflow", "outputs", "execution")
-"""Sections that never change results (kept out of the result hash)."""
+EXECUTION_SECTIONS = ("workflow", "design", "outputs", "execution")
+"""Sections that never change a fit's results (kept out of the result hash); ``[design]``
+is the power analysis (``nstress power``), a product of its own."""
 
 
 # ---------------------------------------------------------------- the workflow
@@ -381,6 +423,8 @@ class Workflow:
         Where the run is written.
     unit_reports
         Render a report per unit as well as the merged one.
+    design
+        The ``[design]`` section (power analysis), checked, or ``None``.
     document
         The validated document (for the manifest).
     """
@@ -396,6 +440,7 @@ class Workflow:
     run_dir: Path
     unit_reports: bool = False
     document: dict[str, Any] = field(default_factory=dict)
+    design: dict[str, Any] | None = None
 
     @property
     def seed(self) -> int:
@@ -542,6 +587,7 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
         run_dir=resolve_run_dir(doc.get("outputs", {}).get("run_dir"), base, path.stem, file),
         unit_reports=fit.report,
         document=doc,
+        design=_design(doc.get("design"), tissues, file),
     )
 
 
@@ -648,6 +694,36 @@ def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str) -> None:
             check()
         except ConfigError as exc:
             raise _prefixed(exc, prefix, file) from None
+
+
+def _design(section: dict[str, Any] | None, tissues: dict[str, Any], file: str) -> Any:
+    """Check a ``[design]`` section as a whole (ranges, the keratin tissue named)."""
+    if section is None:
+        return None
+    from nstress.tissues import resolve_tissues
+    from nstress.workflow.power import design_from_section
+
+    try:
+        design = design_from_section(section)
+    except ConfigError as exc:
+        raise ConfigError(exc.detail, key=exc.key, file=file) from None
+    registry = resolve_tissues(tissues)
+    tissue = registry.get(design.keratin_tissue)
+    if tissue is None or not tissue.is_keratin:
+        raise ConfigError(
+            f"{design.keratin_tissue!r} is not a keratin tissue"
+            + _hint(design.keratin_tissue, [k for k, t in registry.items() if t.is_keratin]),
+            key="design.keratin_tissue",
+            file=file,
+        )
+    unknown = [t for t in design.blood_tissues if t not in registry or registry[t].is_keratin]
+    if unknown:
+        raise ConfigError(
+            f"not blood tissues: {', '.join(map(repr, unknown))}",
+            key="design.blood_tissues",
+            file=file,
+        )
+    return dict(section)
 
 
 def _prefixed(exc: ConfigError, prefix: str, file: str) -> ConfigError:

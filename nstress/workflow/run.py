@@ -794,6 +794,9 @@ def run_workflow(
                         status=r["status"], seconds=r.get("seconds"), error=r.get("error")
                     )
             t_units = time.perf_counter() - t0
+            t0 = time.perf_counter()
+            power = _power_step(wf, run_dir, board, force)
+            t_power = time.perf_counter() - t0
             board.log("merging the units and rendering the report")
             t0 = time.perf_counter()
             finished = _finished_units(run_dir, units, entries)
@@ -837,17 +840,37 @@ def run_workflow(
             "timings_s": {
                 "check_s": round(t_check, 3),
                 "units_s": round(t_units, 3),
+                "power_s": round(t_power, 3),
                 "merge_report_s": round(t_merge, 3),
                 "total_s": round(time.perf_counter() - t_start, 3),
             },
             "units": list(entries.values()),
             "failed_units": failed,
             "diagnostics_failed_units": bad_diag,
+            "power": power,
             "files": sorted(p.name for p in run_dir.iterdir() if not p.name.startswith(".")),
         }
         atomic_write_text(run_dir / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
         code = EXIT_FIT_FAILED if failed or bad_diag else EXIT_OK
         return RunOutcome(code, manifest, run_dir)
+
+
+def _power_step(wf: Workflow, run_dir: Path, board: Board, force: bool) -> dict[str, Any] | None:
+    """Run the ``[design]`` power analysis of the data's design; its outcome for the manifest.
+
+    A failure here is reported (manifest and progress), not raised: the fits
+    are finished and stay valid; the report then says no power analysis ran.
+    """
+    if wf.design is None:
+        return None
+    from nstress.workflow.power import power_for_workflow
+
+    try:
+        out = power_for_workflow(wf, run_dir, log=board.log, force=force)
+    except (NstressError, ValueError, RuntimeError) as exc:
+        board.log(f"power analysis failed: {exc}")
+        return {"ok": False, "error": str(exc)}
+    return {"ok": out is not None, "dir": out.name if out is not None else None}
 
 
 def _finished_units(
