@@ -324,6 +324,9 @@ SECTIONS = (
     "outputs",
     "execution",
 )
+PRESET_KEY = "preset"
+"""The one top-level key of a workflow file that is not a section: a preset's name."""
+PRESET_NAME = Setting("text")
 EXECUTION_SECTIONS = ("workflow", "outputs", "execution")
 """Sections that never change results (kept out of the result hash)."""
 
@@ -417,8 +420,9 @@ def load_workflow(
     path
         The ``.toml`` file.
     overrides
-        ``{section: {key: value}}`` merged over the file before validation
-        (used by ``nstress demo --draws ...``).
+        ``{section: {key: value}}`` merged (table by table) over the file
+        before validation: the command line's options (``nstress demo
+        --draws ...``, ``--set priors.gamma.mu=0``, ``--preset NAME``).
 
     Returns
     -------
@@ -441,7 +445,10 @@ def load_workflow(
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ConfigError(f"not a valid TOML file: {exc}", file=str(path)) from None
     for section, values in (overrides or {}).items():
-        doc.setdefault(section, {}).update(values)
+        if isinstance(values, dict) and isinstance(doc.get(section, {}), dict):
+            doc[section] = _deep_merge(doc.get(section, {}), values)
+        elif not isinstance(values, dict):  # a top-level key (``preset``)
+            doc[section] = values
     return validate(doc, path, hashlib.sha256(raw).hexdigest())
 
 
@@ -470,16 +477,7 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
     doc = copy.deepcopy(doc)
     _reject_non_finite(doc, "", file)
     _reject_nul(doc, "", file)
-    schema = _schema()
-    for section, body in doc.items():
-        if section not in SECTIONS:
-            raise ConfigError(
-                f"unknown section [{section}]" + _hint(section, SECTIONS), key=section, file=file
-            )
-        if not isinstance(body, dict):
-            raise ConfigError(f"expected a table, got {_describe(body)}", key=section, file=file)
-        if section in schema:
-            _check_keys(body, schema[section], section, file)
+    _check_sections(doc, SECTIONS, file)
     version = doc.get("workflow", {}).get("version", SCHEMA_VERSION)
     if version > SCHEMA_VERSION:
         raise ConfigError(
@@ -487,8 +485,7 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
             key="workflow.version",
             file=file,
         )
-    tissues = _tissues(doc.get("tissues", {}), doc.get("growth", {}), file)
-    _delegate(doc, tissues, file)
+    study = _study(doc, file)
 
     base = path.parent
     wf, sampler, grid = doc.get("workflow", {}), doc.get("sampler", {}), doc.get("grid", {})
@@ -503,9 +500,9 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
     fit = FitConfig(
         bin_days=float(grid.get("bin_days", FitConfig.bin_days)),
         knot_days=float(grid.get("knot_days", FitConfig.knot_days)),
-        priors=doc.get("priors", {}),
-        tissues=tissues,
-        qc=doc.get("qc", {}),
+        priors=study["priors"],
+        tissues=study["tissues"],
+        qc=study["qc"],
         sampler={
             "draws": sampler.get("draws", 1000),
             "tune": sampler.get("tune", 1000),
@@ -518,11 +515,12 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
             **{k: sampler[k] for k in ("method", "fast_draws") if k in sampler},
             "backend": execution.get("backend", "auto"),
         },
-        screening=doc.get("screening", {}),
-        diagnostics=doc.get("diagnostics", {}),
+        screening=study["screening"],
+        diagnostics=study["diagnostics"],
         product_draws=sampler.get("product_draws", FitConfig.product_draws),
         progress=False,
         report=bool(doc.get("outputs", {}).get("unit_reports", False)),
+        preset=study["preset"],
     )
     return Workflow(
         path=path,
@@ -550,7 +548,7 @@ def _as_list(value: str | list[str]) -> list[str]:
     return [value] if isinstance(value, str) else list(value)
 
 
-def _reject_non_finite(value: Any, key: str, file: str) -> None:
+def _reject_non_finite(value: Any, key: str, file: str | None) -> None:
     """Reject ``nan`` and ``inf`` anywhere in the document."""
     if isinstance(value, float) and not math.isfinite(value):
         raise ConfigError(f"expected a finite number, got {value!r}", key=key, file=file)
@@ -575,8 +573,34 @@ def _reject_nul(value: Any, key: str, file: str) -> None:
             _reject_nul(v, f"{key}[{i}]", file)
 
 
-def _check_keys(body: dict[str, Any], known: dict[str, Setting], where: str, file: str) -> None:
+def _check_sections(doc: dict[str, Any], allowed: tuple[str, ...], file: str | None) -> None:
+    """Check every section's name, that it is a table, and its keys (``preset`` is a text key)."""
+    schema = _schema()
+    for section, body in doc.items():
+        if section == PRESET_KEY:
+            PRESET_NAME.check(body, PRESET_KEY, file)
+            continue
+        if section not in allowed:
+            raise ConfigError(
+                f"unknown section [{section}]" + _hint(section, allowed), key=section, file=file
+            )
+        if not isinstance(body, dict):
+            raise ConfigError(f"expected a table, got {_describe(body)}", key=section, file=file)
+        if section in schema:
+            _check_keys(body, schema[section], section, file)
+
+
+def _check_keys(
+    body: dict[str, Any], known: dict[str, Setting], where: str, file: str | None
+) -> None:
     for key, value in body.items():
+        if key == PRESET_KEY and key not in known:
+            raise ConfigError(
+                f"preset is named at the top of the file, before the first [section]: "
+                f"preset = {toml_text(str(value))}",
+                key=f"{where}.{key}",
+                file=file,
+            )
         if key not in known:
             raise ConfigError(
                 f"unknown key {key!r} in [{where}]" + _hint(key, known),
@@ -587,7 +611,7 @@ def _check_keys(body: dict[str, Any], known: dict[str, Setting], where: str, fil
             known[key].check(value, f"{where}.{key}", file)
 
 
-def _tissues(tissues: dict[str, Any], growth: dict[str, Any], file: str) -> dict[str, Any]:
+def _tissues(tissues: dict[str, Any], growth: dict[str, Any], file: str | None) -> dict[str, Any]:
     """Check ``[tissues.*]`` and ``[growth.*]`` and merge them into tissue overrides."""
     from nstress.tissues import resolve_tissues
 
@@ -631,7 +655,7 @@ def _tissues(tissues: dict[str, Any], growth: dict[str, Any], file: str) -> dict
     return out
 
 
-def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str) -> None:
+def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str | None) -> None:
     """Run the lower layers' own checks of priors, QC and screening settings."""
     from nstress.model.priors import resolve_priors
     from nstress.prep import resolve_config
@@ -650,9 +674,245 @@ def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str) -> None:
             raise _prefixed(exc, prefix, file) from None
 
 
-def _prefixed(exc: ConfigError, prefix: str, file: str) -> ConfigError:
+def _prefixed(exc: ConfigError, prefix: str, file: str | None) -> ConfigError:
     key = f"{prefix}{exc.key}" if exc.key else prefix.rstrip(".") or None
     return ConfigError(getattr(exc, "detail", str(exc)), key=key, file=file)
+
+
+# ---------------------------------------------------------------- presets and layering
+
+
+def _study(doc: dict[str, Any], file: str | None) -> dict[str, Any]:
+    """Resolve the study settings of a checked document: defaults < preset < document.
+
+    Returns ``priors``, ``tissues``, ``qc``, ``screening``, ``diagnostics``
+    (the overrides a :class:`FitConfig` takes, the preset's values merged
+    under the document's) and ``preset`` (the record of what the preset
+    set, or ``None``). The lower layers' own checks run on the result.
+    """
+    tissues = _tissues(doc.get("tissues", {}), doc.get("growth", {}), file)
+    layered, tissues, record = _layer_preset(doc, tissues, file)
+    _delegate(layered, tissues, file)
+    return {
+        "priors": layered.get("priors", {}),
+        "tissues": tissues,
+        "qc": layered.get("qc", {}),
+        "screening": doc.get("screening", {}),
+        "diagnostics": doc.get("diagnostics", {}),
+        "preset": record,
+    }
+
+
+def _layer_preset(
+    doc: dict[str, Any], tissues: dict[str, Any], file: str | None
+) -> tuple[dict[str, Any], dict[str, Any], dict[str, Any] | None]:
+    """Put the named preset's values under the document's; return them and the preset's record.
+
+    The record (plain data, hashed with the result settings, shown in the
+    manifest and the report) has the preset's name, title, description,
+    diet, tissues, cautions and every value it set with its source and
+    whether the document (a workflow file or the command line) overrode it.
+    """
+    from nstress.presets import load_preset
+    from nstress.tissues import DEFAULT_TISSUES, resolve_tissues
+
+    if PRESET_KEY not in doc:
+        return doc, tissues, None
+    try:
+        preset = load_preset(doc[PRESET_KEY])
+    except ConfigError as exc:
+        raise ConfigError(exc.detail, key=PRESET_KEY, file=file) from None
+    sections = preset.sections()
+    layered = dict(doc)
+    for section in ("priors", "qc"):
+        if section in sections:
+            layered[section] = _deep_merge(sections[section], doc.get(section, {}))
+    own = {_canonical(k) for k in _flat({s: doc.get(s, {}) for s in PRESET_SECTIONS})}
+    values, notes = [], {}
+    for v in preset.values:
+        keys = {_canonical(k) for k in _flat(_nest(v.key, v.value))}
+        overridden = bool(keys & own)
+        values.append(
+            {"key": v.key, "value": v.value, "source": v.source, "overridden": overridden}
+        )
+        section, *rest = _canonical(v.key).split(".")
+        if section == "tissues" and not overridden:  # the tissue's sources name the preset's
+            said = notes.setdefault(rest[0], {})
+            category = _source_category(rest[1])
+            before = said.get(category)
+            if before is None:
+                said[category] = f"preset {preset.name}: {v.source}"
+            elif v.source not in before:
+                said[category] = f"{before}; {v.source}"
+    merged = {name.strip().lower(): dict(body) for name, body in tissues.items()}
+    for name, fields in _preset_tissues(sections).items():
+        body = merged.setdefault(name, {})
+        if isinstance(fields.get("growth_params"), dict) and isinstance(
+            body.get("growth_params"), dict
+        ):
+            body["growth_params"] = {**fields["growth_params"], **body["growth_params"]}
+        merged[name] = {**fields, **body}
+    for name, categories in notes.items():
+        base = DEFAULT_TISSUES[name].sources if name in DEFAULT_TISSUES else {}
+        merged[name]["sources"] = {**base, **categories, **merged[name].get("sources", {})}
+    try:
+        resolve_tissues(merged)
+    except ConfigError as exc:
+        raise _prefixed(exc, "", file) from None
+    return layered, merged, {**preset.to_dict(), "values": values}
+
+
+PRESET_SECTIONS = ("priors", "tissues", "growth", "qc")
+
+
+def _preset_tissues(sections: dict[str, Any]) -> dict[str, dict[str, Any]]:
+    """Return a preset's ``[tissues.*]`` and ``[growth.*]`` as tissue fields."""
+    out: dict[str, dict[str, Any]] = {}
+    for name, body in sections.get("tissues", {}).items():
+        out.setdefault(name, {}).update(body)
+    for name, body in sections.get("growth", {}).items():
+        out.setdefault(name, {}).update({GROWTH_FIELDS[k]: v for k, v in body.items()})
+    return out
+
+
+def _source_category(field_name: str) -> str:
+    """Return the key of ``Tissue.sources`` that a tissue field's source belongs under."""
+    if field_name == "growth_sd_log":
+        return "growth_sd"
+    for prefix, category in (
+        ("growth_", "growth"),
+        ("disc_", "disc"),
+        ("half_life", "half_life"),
+        ("cn_", "cn"),
+        ("lipid_", "lipid"),
+    ):
+        if field_name.startswith(prefix):
+            return category
+    return field_name
+
+
+def _nest(key: str, value: Any) -> dict[str, Any]:
+    """``"a.b.c", v`` -> ``{"a": {"b": {"c": v}}}``."""
+    for part in reversed(key.split(".")):
+        value = {part: value}
+    return value
+
+
+def _flat(tree: dict[str, Any], prefix: str = "") -> list[str]:
+    """Dotted keys of the leaves of nested tables."""
+    keys = []
+    for k, v in tree.items():
+        key = f"{prefix}{k}"
+        keys.extend(_flat(v, f"{key}.") if isinstance(v, dict) and v else [key])
+    return keys
+
+
+def _canonical(key: str) -> str:
+    """Return a dotted key in tissue-field terms.
+
+    ``growth.X.mm_per_day`` -> ``tissues.x.growth_mm_per_day``.
+    """
+    parts = key.split(".")
+    if parts[0] in ("growth", "tissues") and len(parts) >= 3:
+        name = parts[1].strip().lower()
+        field_name = GROWTH_FIELDS.get(parts[2], parts[2]) if parts[0] == "growth" else parts[2]
+        return ".".join(["tissues", name, field_name, *parts[3:]])
+    return key
+
+
+def _deep_merge(base: dict[str, Any], top: dict[str, Any]) -> dict[str, Any]:
+    """Merge ``top`` over ``base``, table by table (``top`` wins; neither is changed)."""
+    out = copy.deepcopy(base)
+    for k, v in top.items():
+        if isinstance(v, dict) and isinstance(out.get(k), dict):
+            out[k] = _deep_merge(out[k], v)
+        else:
+            out[k] = copy.deepcopy(v)
+    return out
+
+
+STUDY_SECTIONS = ("priors", "tissues", "growth", "qc", "screening", "diagnostics")
+"""Sections that ``--set`` may change (the others have their own options)."""
+
+
+def parse_assignments(pairs: list[str]) -> dict[str, Any]:
+    """Turn command-line ``KEY=VALUE`` settings into ``{section: {...}}`` overrides.
+
+    ``KEY`` is a dotted key of a workflow file (``priors.gamma.mu``,
+    ``growth.whisker.mm_per_day``, ``qc.lipid.plasma``) in one of
+    :data:`STUDY_SECTIONS`; ``VALUE`` is read as a TOML value (``0.2``,
+    ``true``, ``[2.9, 3.6]``, ``{ l_inf_mm = 80, k_per_day = 0.03 }``),
+    and as text when it is not one (``none``).
+
+    Parameters
+    ----------
+    pairs
+        The ``--set`` arguments, in order (a later one wins).
+
+    Returns
+    -------
+    dict
+
+    Raises
+    ------
+    ConfigError
+        A setting without ``=``, an empty key part, or a section that
+        ``--set`` does not change.
+    """
+    out: dict[str, Any] = {}
+    for pair in pairs:
+        key, eq, text = pair.partition("=")
+        parts = [p.strip() for p in key.split(".")]
+        if not eq or len(parts) < 2 or not all(parts):
+            raise ConfigError(
+                f"--set takes SECTION.KEY=VALUE (e.g. priors.gamma.mu=0.1), got {pair!r}"
+            )
+        if parts[0] not in STUDY_SECTIONS:
+            raise ConfigError(
+                f"--set changes {', '.join(STUDY_SECTIONS)}; [{parts[0]}] settings have their own "
+                "options or belong in a workflow file" + _hint(parts[0], STUDY_SECTIONS),
+                key=key.strip(),
+            )
+        try:
+            value = tomllib.loads(f"v = {text.strip()}")["v"]
+        except tomllib.TOMLDecodeError:
+            value = text.strip()
+        out = _deep_merge(out, _nest(".".join(parts), value))
+    return out
+
+
+def study_settings(
+    preset: str | None = None, overrides: dict[str, Any] | None = None
+) -> dict[str, Any]:
+    """Resolve the study settings of a fit without a workflow file (``nstress fit``).
+
+    The same checks and the same layering as a workflow file: package
+    defaults < ``preset`` < ``overrides`` (the command line's ``--set``).
+
+    Parameters
+    ----------
+    preset
+        A preset's name, or ``None``.
+    overrides
+        ``{section: {...}}`` from :func:`parse_assignments`.
+
+    Returns
+    -------
+    dict
+        ``priors``, ``tissues``, ``qc``, ``screening``, ``diagnostics`` and
+        ``preset`` (the record), ready for :class:`FitConfig`.
+
+    Raises
+    ------
+    ConfigError
+        An unknown preset (with a hint), key or value.
+    """
+    doc: dict[str, Any] = copy.deepcopy(overrides or {})
+    if preset is not None:
+        doc[PRESET_KEY] = preset
+    _reject_non_finite(doc, "", None)
+    _check_sections(doc, STUDY_SECTIONS, None)
+    return _study(doc, None)
 
 
 def resolve_inputs(patterns: list[str], base: Path, file: str | None = None) -> list[Path]:
@@ -745,8 +1005,31 @@ def toml_text(value: str) -> str:
     return json.dumps(value, ensure_ascii=False)
 
 
+def _starter_preset(name: str | None) -> str:
+    """Return the ``preset = "NAME"`` lines of a starter file, with what the preset sets."""
+    if name is None:
+        return ""
+    from nstress.presets import format_value, load_preset
+
+    p = load_preset(name)
+    lines = [
+        "",
+        f"# Starting values: {p.title}.",
+        "# The preset sets the values below (`nstress presets NAME` shows their sources);",
+        "# a section of this file or --set KEY=VALUE on the command line overrides any of them.",
+    ]
+    lines += [f"#   {v.key} = {format_value(v.value)}" for v in p.values]
+    lines.append(f"preset = {toml_text(p.name)}")
+    return "\n".join(lines) + "\n"
+
+
 def starter_workflow(
-    tables: list[Path], dest: Path, groups: list[str], tissues: list[str], rows: int
+    tables: list[Path],
+    dest: Path,
+    groups: list[str],
+    tissues: list[str],
+    rows: int,
+    preset: str | None = None,
 ) -> str:
     """Return the text of a starter workflow file for ``tables``.
 
@@ -763,11 +1046,19 @@ def starter_workflow(
         The tissues found.
     rows
         Number of input rows (for the comment).
+    preset
+        A natural-history preset to start from (written as ``preset =
+        "NAME"`` at the top), or ``None``.
 
     Returns
     -------
     str
         A workflow that :func:`load_workflow` accepts.
+
+    Raises
+    ------
+    ConfigError
+        An unknown preset (with a "did you mean" hint).
     """
     import os
 
@@ -778,7 +1069,7 @@ def starter_workflow(
 # nstress workflow (schema {SCHEMA_VERSION}); see `nstress run --help` and DEVELOPERS.md.
 # Written by `nstress init` for {len(tables)} table(s), {rows} row(s).
 # Tissues found: {", ".join(tissues) or "none"}.
-
+{_starter_preset(preset)}
 [workflow]
 name = {toml_text(dest.stem)}
 

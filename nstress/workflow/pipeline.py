@@ -63,6 +63,12 @@ class FitConfig:
     model
         Further :class:`nstress.model.build.ModelSpec` settings by name (for
         example ``diet_clock`` or ``onset_step_days``); they change results.
+    preset
+        The natural-history preset the settings started from (plain data:
+        name, description and every value it set with its source, see
+        :mod:`nstress.presets`), or ``None``. Its values are already merged
+        into ``priors``, ``tissues`` and ``qc``; the record is kept for the
+        manifest and the report, and is hashed with the result settings.
     """
 
     bin_days: float = 4.0
@@ -79,6 +85,7 @@ class FitConfig:
     progress: bool = True
     report: bool = True
     model: dict[str, Any] = field(default_factory=dict)
+    preset: dict[str, Any] | None = None
 
     def result_config(self) -> dict[str, Any]:
         """Return the settings that change results, as plain data (hashed for caching)."""
@@ -91,6 +98,8 @@ class FitConfig:
             d.pop("group")
         if not d["model"]:
             d.pop("model")
+        if d["preset"] is None:  # a fit without a preset hashes as it always did
+            d.pop("preset")
         d["sampler"] = {k: v for k, v in d["sampler"].items() if k not in EXECUTION_ONLY}
         return d
 
