@@ -43,7 +43,7 @@ SECTIONS = ("priors", "tissues", "growth", "qc")
 DIETS = {
     "protein_lipid": "protein and lipid (marine carnivore: fish, squid, krill)",
     "carbohydrate_rich": "carbohydrate-rich plants (terrestrial herbivore)",
-    "mixed": "mixed plant and animal food (omnivore)",
+    "mixed": "mixed plant and animal food, largely carbohydrate (omnivore)",
 }
 """Diet composition words a preset may use, and what they mean."""
 

@@ -482,7 +482,8 @@ def _study_arguments(p: argparse.ArgumentParser, from_workflow: bool = False) ->
 
 def _study_overrides(args: argparse.Namespace) -> dict[str, Any]:
     """Return the command line's ``--preset`` and ``--set`` as workflow overrides."""
-    from nstress.workflow.config import PRESET_KEY, parse_assignments
+    from nstress.workflow.config import PRESET_KEY
+    from nstress.workflow.layers import parse_assignments
 
     out = parse_assignments(args.set)
     if args.preset is not None:
@@ -491,7 +492,7 @@ def _study_overrides(args: argparse.Namespace) -> dict[str, Any]:
 
 
 def _run_fit(args: argparse.Namespace) -> int:
-    from nstress.workflow.config import parse_assignments, study_settings
+    from nstress.workflow.layers import parse_assignments, study_settings
     from nstress.workflow.pipeline import FitConfig, fit_tables
 
     for name in ("draws", "tune", "chains"):

@@ -444,25 +444,31 @@ def load_workflow(
         doc = tomllib.loads(raw.decode("utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ConfigError(f"not a valid TOML file: {exc}", file=str(path)) from None
-    for section, values in (overrides or {}).items():
-        if isinstance(values, dict) and isinstance(doc.get(section, {}), dict):
-            doc[section] = _deep_merge(doc.get(section, {}), values)
-        elif not isinstance(values, dict):  # a top-level key (``preset``)
-            doc[section] = values
-    return validate(doc, path, hashlib.sha256(raw).hexdigest())
+    from nstress.workflow.layers import merge_overrides
+
+    doc = merge_overrides(doc, overrides or {})
+    return validate(doc, path, hashlib.sha256(raw).hexdigest(), command_line=overrides)
 
 
-def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
+def validate(
+    doc: dict[str, Any],
+    path: Path,
+    sha256: str = "",
+    command_line: Mapping[str, Any] | None = None,
+) -> Workflow:
     """Check a parsed workflow document and build the :class:`Workflow`.
 
     Parameters
     ----------
     doc
-        The parsed TOML.
+        The parsed TOML (with the command line's overrides merged in).
     path
         The workflow file (relative paths are relative to its directory).
     sha256
         The file's SHA-256 (provenance).
+    command_line
+        The overrides that came from the command line (the record of a
+        preset says which of its values they replaced).
 
     Returns
     -------
@@ -485,7 +491,9 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
             key="workflow.version",
             file=file,
         )
-    study = _study(doc, file)
+    from nstress.workflow.layers import study as resolve_study
+
+    study = resolve_study(doc, file, command_line)
 
     base = path.parent
     wf, sampler, grid = doc.get("workflow", {}), doc.get("sampler", {}), doc.get("grid", {})
@@ -677,242 +685,6 @@ def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str | None) ->
 def _prefixed(exc: ConfigError, prefix: str, file: str | None) -> ConfigError:
     key = f"{prefix}{exc.key}" if exc.key else prefix.rstrip(".") or None
     return ConfigError(getattr(exc, "detail", str(exc)), key=key, file=file)
-
-
-# ---------------------------------------------------------------- presets and layering
-
-
-def _study(doc: dict[str, Any], file: str | None) -> dict[str, Any]:
-    """Resolve the study settings of a checked document: defaults < preset < document.
-
-    Returns ``priors``, ``tissues``, ``qc``, ``screening``, ``diagnostics``
-    (the overrides a :class:`FitConfig` takes, the preset's values merged
-    under the document's) and ``preset`` (the record of what the preset
-    set, or ``None``). The lower layers' own checks run on the result.
-    """
-    tissues = _tissues(doc.get("tissues", {}), doc.get("growth", {}), file)
-    layered, tissues, record = _layer_preset(doc, tissues, file)
-    _delegate(layered, tissues, file)
-    return {
-        "priors": layered.get("priors", {}),
-        "tissues": tissues,
-        "qc": layered.get("qc", {}),
-        "screening": doc.get("screening", {}),
-        "diagnostics": doc.get("diagnostics", {}),
-        "preset": record,
-    }
-
-
-def _layer_preset(
-    doc: dict[str, Any], tissues: dict[str, Any], file: str | None
-) -> tuple[dict[str, Any], dict[str, Any], dict[str, Any] | None]:
-    """Put the named preset's values under the document's; return them and the preset's record.
-
-    The record (plain data, hashed with the result settings, shown in the
-    manifest and the report) has the preset's name, title, description,
-    diet, tissues, cautions and every value it set with its source and
-    whether the document (a workflow file or the command line) overrode it.
-    """
-    from nstress.presets import load_preset
-    from nstress.tissues import DEFAULT_TISSUES, resolve_tissues
-
-    if PRESET_KEY not in doc:
-        return doc, tissues, None
-    try:
-        preset = load_preset(doc[PRESET_KEY])
-    except ConfigError as exc:
-        raise ConfigError(exc.detail, key=PRESET_KEY, file=file) from None
-    sections = preset.sections()
-    layered = dict(doc)
-    for section in ("priors", "qc"):
-        if section in sections:
-            layered[section] = _deep_merge(sections[section], doc.get(section, {}))
-    own = {_canonical(k) for k in _flat({s: doc.get(s, {}) for s in PRESET_SECTIONS})}
-    values, notes = [], {}
-    for v in preset.values:
-        keys = {_canonical(k) for k in _flat(_nest(v.key, v.value))}
-        overridden = bool(keys & own)
-        values.append(
-            {"key": v.key, "value": v.value, "source": v.source, "overridden": overridden}
-        )
-        section, *rest = _canonical(v.key).split(".")
-        if section == "tissues" and not overridden:  # the tissue's sources name the preset's
-            said = notes.setdefault(rest[0], {})
-            category = _source_category(rest[1])
-            before = said.get(category)
-            if before is None:
-                said[category] = f"preset {preset.name}: {v.source}"
-            elif v.source not in before:
-                said[category] = f"{before}; {v.source}"
-    merged = {name.strip().lower(): dict(body) for name, body in tissues.items()}
-    for name, fields in _preset_tissues(sections).items():
-        body = merged.setdefault(name, {})
-        if isinstance(fields.get("growth_params"), dict) and isinstance(
-            body.get("growth_params"), dict
-        ):
-            body["growth_params"] = {**fields["growth_params"], **body["growth_params"]}
-        merged[name] = {**fields, **body}
-    for name, categories in notes.items():
-        base = DEFAULT_TISSUES[name].sources if name in DEFAULT_TISSUES else {}
-        merged[name]["sources"] = {**base, **categories, **merged[name].get("sources", {})}
-    try:
-        resolve_tissues(merged)
-    except ConfigError as exc:
-        raise _prefixed(exc, "", file) from None
-    return layered, merged, {**preset.to_dict(), "values": values}
-
-
-PRESET_SECTIONS = ("priors", "tissues", "growth", "qc")
-
-
-def _preset_tissues(sections: dict[str, Any]) -> dict[str, dict[str, Any]]:
-    """Return a preset's ``[tissues.*]`` and ``[growth.*]`` as tissue fields."""
-    out: dict[str, dict[str, Any]] = {}
-    for name, body in sections.get("tissues", {}).items():
-        out.setdefault(name, {}).update(body)
-    for name, body in sections.get("growth", {}).items():
-        out.setdefault(name, {}).update({GROWTH_FIELDS[k]: v for k, v in body.items()})
-    return out
-
-
-def _source_category(field_name: str) -> str:
-    """Return the key of ``Tissue.sources`` that a tissue field's source belongs under."""
-    if field_name == "growth_sd_log":
-        return "growth_sd"
-    for prefix, category in (
-        ("growth_", "growth"),
-        ("disc_", "disc"),
-        ("half_life", "half_life"),
-        ("cn_", "cn"),
-        ("lipid_", "lipid"),
-    ):
-        if field_name.startswith(prefix):
-            return category
-    return field_name
-
-
-def _nest(key: str, value: Any) -> dict[str, Any]:
-    """``"a.b.c", v`` -> ``{"a": {"b": {"c": v}}}``."""
-    for part in reversed(key.split(".")):
-        value = {part: value}
-    return value
-
-
-def _flat(tree: dict[str, Any], prefix: str = "") -> list[str]:
-    """Dotted keys of the leaves of nested tables."""
-    keys = []
-    for k, v in tree.items():
-        key = f"{prefix}{k}"
-        keys.extend(_flat(v, f"{key}.") if isinstance(v, dict) and v else [key])
-    return keys
-
-
-def _canonical(key: str) -> str:
-    """Return a dotted key in tissue-field terms.
-
-    ``growth.X.mm_per_day`` -> ``tissues.x.growth_mm_per_day``.
-    """
-    parts = key.split(".")
-    if parts[0] in ("growth", "tissues") and len(parts) >= 3:
-        name = parts[1].strip().lower()
-        field_name = GROWTH_FIELDS.get(parts[2], parts[2]) if parts[0] == "growth" else parts[2]
-        return ".".join(["tissues", name, field_name, *parts[3:]])
-    return key
-
-
-def _deep_merge(base: dict[str, Any], top: dict[str, Any]) -> dict[str, Any]:
-    """Merge ``top`` over ``base``, table by table (``top`` wins; neither is changed)."""
-    out = copy.deepcopy(base)
-    for k, v in top.items():
-        if isinstance(v, dict) and isinstance(out.get(k), dict):
-            out[k] = _deep_merge(out[k], v)
-        else:
-            out[k] = copy.deepcopy(v)
-    return out
-
-
-STUDY_SECTIONS = ("priors", "tissues", "growth", "qc", "screening", "diagnostics")
-"""Sections that ``--set`` may change (the others have their own options)."""
-
-
-def parse_assignments(pairs: list[str]) -> dict[str, Any]:
-    """Turn command-line ``KEY=VALUE`` settings into ``{section: {...}}`` overrides.
-
-    ``KEY`` is a dotted key of a workflow file (``priors.gamma.mu``,
-    ``growth.whisker.mm_per_day``, ``qc.lipid.plasma``) in one of
-    :data:`STUDY_SECTIONS`; ``VALUE`` is read as a TOML value (``0.2``,
-    ``true``, ``[2.9, 3.6]``, ``{ l_inf_mm = 80, k_per_day = 0.03 }``),
-    and as text when it is not one (``none``).
-
-    Parameters
-    ----------
-    pairs
-        The ``--set`` arguments, in order (a later one wins).
-
-    Returns
-    -------
-    dict
-
-    Raises
-    ------
-    ConfigError
-        A setting without ``=``, an empty key part, or a section that
-        ``--set`` does not change.
-    """
-    out: dict[str, Any] = {}
-    for pair in pairs:
-        key, eq, text = pair.partition("=")
-        parts = [p.strip() for p in key.split(".")]
-        if not eq or len(parts) < 2 or not all(parts):
-            raise ConfigError(
-                f"--set takes SECTION.KEY=VALUE (e.g. priors.gamma.mu=0.1), got {pair!r}"
-            )
-        if parts[0] not in STUDY_SECTIONS:
-            raise ConfigError(
-                f"--set changes {', '.join(STUDY_SECTIONS)}; [{parts[0]}] settings have their own "
-                "options or belong in a workflow file" + _hint(parts[0], STUDY_SECTIONS),
-                key=key.strip(),
-            )
-        try:
-            value = tomllib.loads(f"v = {text.strip()}")["v"]
-        except tomllib.TOMLDecodeError:
-            value = text.strip()
-        out = _deep_merge(out, _nest(".".join(parts), value))
-    return out
-
-
-def study_settings(
-    preset: str | None = None, overrides: dict[str, Any] | None = None
-) -> dict[str, Any]:
-    """Resolve the study settings of a fit without a workflow file (``nstress fit``).
-
-    The same checks and the same layering as a workflow file: package
-    defaults < ``preset`` < ``overrides`` (the command line's ``--set``).
-
-    Parameters
-    ----------
-    preset
-        A preset's name, or ``None``.
-    overrides
-        ``{section: {...}}`` from :func:`parse_assignments`.
-
-    Returns
-    -------
-    dict
-        ``priors``, ``tissues``, ``qc``, ``screening``, ``diagnostics`` and
-        ``preset`` (the record), ready for :class:`FitConfig`.
-
-    Raises
-    ------
-    ConfigError
-        An unknown preset (with a hint), key or value.
-    """
-    doc: dict[str, Any] = copy.deepcopy(overrides or {})
-    if preset is not None:
-        doc[PRESET_KEY] = preset
-    _reject_non_finite(doc, "", None)
-    _check_sections(doc, STUDY_SECTIONS, None)
-    return _study(doc, None)
 
 
 def resolve_inputs(patterns: list[str], base: Path, file: str | None = None) -> list[Path]:

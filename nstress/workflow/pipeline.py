@@ -64,11 +64,14 @@ class FitConfig:
         Further :class:`nstress.model.build.ModelSpec` settings by name (for
         example ``diet_clock`` or ``onset_step_days``); they change results.
     preset
-        The natural-history preset the settings started from (plain data:
-        name, description and every value it set with its source, see
-        :mod:`nstress.presets`), or ``None``. Its values are already merged
-        into ``priors``, ``tissues`` and ``qc``; the record is kept for the
-        manifest and the report, and is hashed with the result settings.
+        The natural-history preset the settings started from, or ``None``:
+        the record of :func:`nstress.workflow.layers.study` (plain data: name,
+        title, description, cautions and every value it set with its source,
+        whether a workflow file or the command line replaced it, and the
+        value used). Its values are already merged into ``priors``,
+        ``tissues`` and ``qc``. The name and the values are hashed with the
+        result settings (:meth:`result_config`); the whole record goes into
+        ``manifest.json`` and the report.
     """
 
     bin_days: float = 4.0
@@ -100,6 +103,8 @@ class FitConfig:
             d.pop("model")
         if d["preset"] is None:  # a fit without a preset hashes as it always did
             d.pop("preset")
+        else:  # its name and values, not its prose
+            d["preset"] = {"name": d["preset"]["name"], "values": d["preset"]["values"]}
         d["sampler"] = {k: v for k, v in d["sampler"].items() if k not in EXECUTION_ONLY}
         return d
 
@@ -356,6 +361,7 @@ def fit_tables(
             "status": screen["status"].value_counts().to_dict(),
         },
         "prep_report": prepared.report,
+        "preset": cfg.preset,
         "files": sorted(p.name for p in out.iterdir() if not p.name.startswith(".")),
     }
     atomic_write_text(out / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))
