@@ -394,6 +394,9 @@ def test_presets_lists_and_shows_every_value_with_its_source(capsys):
     assert "Habran et al. 2019" in out and "caution:" in out
     assert main(["presets", "phocid"]) == 2
     assert "did you mean 'phocid_fast'" in capsys.readouterr().err
+    assert main(["presets", "--help"]) == 0
+    out = capsys.readouterr().out
+    assert "examples:" in out and "exit codes:" in out
 
 
 def test_fit_takes_a_preset_and_set(folder, monkeypatch):

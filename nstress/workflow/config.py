@@ -13,6 +13,11 @@ Schema (version 1)
 ------------------
 Settings that change results (they are hashed; a change refits):
 
+``preset = "NAME"`` (at the top, before the first section)
+    A natural-history preset (:mod:`nstress.presets`) whose values start
+    ``[priors]``, ``[tissues]``, ``[growth]`` and ``[qc]``; the file's own
+    values replace them key by key, the command line's ``--set`` replaces
+    both (:mod:`nstress.workflow.layers`).
 ``[workflow]``
     ``name`` (text; default: the file name), ``title`` (report title),
     ``description`` (free text). Labels only, not hashed.
