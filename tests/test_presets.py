@@ -37,17 +37,18 @@ from nstress.workflow.pipeline import config_hash
 
 ROOT = Path(__file__).resolve().parents[1]
 PRESETS = available()
-TABLE = (
-    "individual,tissue,d15N,d13C,date,group\n"
-    "A1,plasma,12.0,-17.0,2024-01-05,north\n"
-    "A1,plasma,12.4,-17.1,2024-01-12,north\n"
-    "B1,plasma,11.8,-16.9,2024-01-05,south\n"
-)
+ROWS = [  # synthetic: two invented animals, one whisker and one plasma series
+    ("individual", "tissue", "d15N", "d13C", "position_mm", "collected", "date"),
+    ("W1", "whisker", "14.0", "-14.6", "0.5", "2025-03-07", ""),
+    ("W1", "whisker", "14.3", "-14.4", "1.5", "2025-03-07", ""),
+    ("P1", "plasma", "12.0", "-17.0", "", "", "2024-01-05"),
+    ("P1", "plasma", "12.4", "-17.1", "", "", "2024-01-12"),
+]
 
 
 @pytest.fixture
 def folder(tmp_path: Path) -> Path:
-    (tmp_path / "colony.csv").write_text(TABLE)
+    (tmp_path / "colony.csv").write_text("".join(",".join(r) + "\n" for r in ROWS))
     return tmp_path
 
 
