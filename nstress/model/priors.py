@@ -159,6 +159,10 @@ PRIORS: dict[str, dict[str, Any]] = {
 }
 
 
+POSITIVE_FIELDS = ("sigma", "alpha", "beta")
+"""Prior fields that must be > 0 (scales and Beta shapes)."""
+
+
 def resolve_priors(overrides: dict[str, dict[str, Any]] | None = None) -> dict[str, dict[str, Any]]:
     """Merge user overrides into the default priors.
 
@@ -175,7 +179,8 @@ def resolve_priors(overrides: dict[str, dict[str, Any]] | None = None) -> dict[s
     Raises
     ------
     ConfigError
-        On an unknown prior or field, with a "did you mean" hint.
+        On an unknown prior or field, with a "did you mean" hint; on a value
+        that is not a number, or a scale or Beta shape that is not > 0.
     """
     out = copy.deepcopy(PRIORS)
     for name, fields in (overrides or {}).items():
@@ -193,5 +198,7 @@ def resolve_priors(overrides: dict[str, dict[str, Any]] | None = None) -> dict[s
                 raise ConfigError(f"unknown field '{f}'{extra}", key=f"priors.{name}.{f}")
             if not isinstance(v, int | float) or isinstance(v, bool):
                 raise ConfigError(f"expected a number, got {v!r}", key=f"priors.{name}.{f}")
+            if f in POSITIVE_FIELDS and not v > 0:
+                raise ConfigError(f"expected a value > 0, got {v!r}", key=f"priors.{name}.{f}")
             out[name][f] = float(v)
     return out

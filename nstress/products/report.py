@@ -27,6 +27,7 @@ from nstress.atomic import atomic_write_text
 from nstress.errors import InputError
 from nstress.model import posterior as post
 from nstress.model.priors import resolve_priors
+from nstress.presets import format_value
 from nstress.products import figures as figs
 from nstress.products.screening import STATUSES, colony_summary
 from nstress.tissues import resolve_tissues
@@ -620,6 +621,63 @@ def _methods(fits: list[FitFiles]) -> tuple[str, list[str]]:
     return html_, texts
 
 
+def _preset_of(f: FitFiles) -> dict[str, Any] | None:
+    """Return the preset record of a unit: the manifest's, else the hashed part in its config."""
+    return f.manifest.get("preset") or f.manifest.get("config", {}).get("preset")
+
+
+def _starting_values(fits: list[FitFiles]) -> tuple[str, list[str]]:
+    """Return the "Starting values" section (the preset, what replaced its values) and sources."""
+    groups: dict[str, tuple[dict[str, Any] | None, list[str]]] = {}
+    for f in fits:
+        rec = _preset_of(f)
+        key = json.dumps(rec, sort_keys=True, default=str)
+        groups.setdefault(key, (rec, []))[1].append(f.unit)
+    parts = ['<section id="starting-values"><h2>Starting values</h2>']
+    texts: list[str] = []
+    for rec, units in groups.values():
+        which = f" (unit(s) {_e(', '.join(units))})" if len(groups) > 1 else ""
+        if rec is None:
+            parts.append(
+                f"<p>No natural-history preset{which}: the package defaults (see Methods) with "
+                "the run's own settings.</p>"
+            )
+            continue
+        values = rec.get("values", [])
+        replaced = [v for v in values if v.get("overridden")]
+        parts.append(
+            f"<h3>Preset <code>{_e(rec.get('name'))}</code>{which}"
+            + (f": {_e(rec['title'])}" if rec.get("title") else "")
+            + "</h3>"
+            + (f"<p>{_e(rec['description'])}</p>" if rec.get("description") else "")
+            + f"<p>The preset set {len(values)} value(s), each with its source; "
+            f"{len(replaced)} of them were replaced by the workflow file or the command line "
+            "(precedence: package defaults &lt; preset &lt; workflow file &lt; command line). "
+            "A preset is a starting point, not a finding about these animals.</p>"
+        )
+        rows = [
+            {
+                "setting": v.get("key"),
+                "preset value": format_value(v.get("value")),
+                "source": v.get("source"),
+                "used in this run": (
+                    f"{format_value(v.get('used'))} (set by the {v.get('overridden_by')})"
+                    if v.get("overridden")
+                    else "preset value"
+                ),
+            }
+            for v in values
+        ]
+        parts.append(_table(pd.DataFrame(rows), "plain starting-values"))
+        cautions = rec.get("cautions") or []
+        if cautions:
+            items = "".join(f"<li>{_e(c)}</li>" for c in cautions)
+            parts.append(f"<p>Cautions of the preset:</p><ul>{items}</ul>")
+        texts += [str(v.get("source", "")) for v in values] + [str(c) for c in cautions]
+    parts.append("</section>")
+    return "".join(parts), texts
+
+
 _CITATION = re.compile(
     r"[A-Z][A-Za-zÀ-ÿ'\-]+(?: et al\.| (?:&|and) [A-Z][A-Za-zÀ-ÿ'\-]+)? \(?(?:19|20)\d\d[a-z]?"
 )
@@ -630,7 +688,8 @@ def _references(texts: list[str]) -> str:
     items = "".join(f"<li>{_e(x)}</li>" for x in found)
     extra = "".join(f"<li>{_e(x)}</li>" for x in EXTRA_REFERENCES)
     return (
-        '<h3 id="references">References</h3><p>As cited by the priors and tissue defaults:</p>'
+        '<h3 id="references">References</h3><p>As cited by the priors, tissue defaults and '
+        "preset values:</p>"
         f"<ul>{items}</ul><p>Methods of this report:</p><ul>{extra}</ul></section>"
     )
 
@@ -805,6 +864,7 @@ def write_report(fit_dirs: list[Path], out_dir: Path, title: str | None = None) 
     pngs = _draw_figures(fits, sc, out_dir / "figures", anchors)
     title = title or "nstress report — " + ", ".join(f.unit for f in fits)
     methods, texts = _methods(fits)
+    starting, preset_texts = _starting_values(fits)
     stamp = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
     nav = "".join(
         f'<a href="#{k}">{v}</a>'
@@ -816,6 +876,7 @@ def write_report(fit_dirs: list[Path], out_dir: Path, title: str | None = None) 
             ("individuals", "Individuals"),
             ("diagnostics", "Diagnostics"),
             ("power", "Design power"),
+            ("starting-values", "Starting values"),
             ("methods", "Methods"),
             ("provenance", "Provenance"),
         )
@@ -836,8 +897,9 @@ def write_report(fit_dirs: list[Path], out_dir: Path, title: str | None = None) 
         + _individuals(sc, anchors, pngs)
         + _diagnostics(fits, pngs)
         + _power(out_dir)
+        + starting
         + methods
-        + _references(texts)
+        + _references(texts + preset_texts)
         + _provenance(fits)
         + f"<script>{_JS}</script></body></html>"
     )

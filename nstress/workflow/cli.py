@@ -386,6 +386,10 @@ examples:
   nstress fit colony.csv --out results/
   nstress fit whiskers.csv plasma.csv --out results/ --draws 1000 --tune 1000 --seed 7
   nstress fit season.csv --out screen/ --fast     # approximate first pass, not final
+  nstress fit colony.csv --out results/ --preset otariid_female --set priors.gamma.sigma=0.5
+
+--preset starts from a natural-history preset (`nstress presets` lists them);
+--set overrides one setting of it, or of the package defaults.
 
 Writes ledger.csv, timelines.csv, screening.csv, colony_summary.csv,
 timelines.nc, posterior.nc and manifest.json (last) into DIR.
@@ -452,18 +456,55 @@ def _fit_arguments(p: argparse.ArgumentParser) -> None:
         default=200,
         help="approximate posterior draws of --fast (default: 200)",
     )
+    _study_arguments(p)
     _model_arguments(p)
 
 
+def _study_arguments(p: argparse.ArgumentParser, from_workflow: bool = False) -> None:
+    """``--preset NAME`` and ``--set KEY=VALUE`` (study settings on the command line)."""
+    p.add_argument(
+        "--preset",
+        metavar="NAME",
+        help="start from a natural-history preset (`nstress presets` lists them)"
+        + ("; replaces the workflow's preset" if from_workflow else ""),
+    )
+    p.add_argument(
+        "--set",
+        metavar="KEY=VALUE",
+        action="append",
+        default=[],
+        help="override one setting of a workflow section (priors, tissues, growth, qc, "
+        "screening, diagnostics), e.g. --set priors.gamma.mu=0.1; repeatable; beats the "
+        + ("workflow file and the " if from_workflow else "")
+        + "preset",
+    )
+
+
+def _study_overrides(args: argparse.Namespace) -> dict[str, Any]:
+    """Return the command line's ``--preset`` and ``--set`` as workflow overrides."""
+    from nstress.workflow.config import PRESET_KEY
+    from nstress.workflow.layers import parse_assignments
+
+    out = parse_assignments(args.set)
+    if args.preset is not None:
+        out[PRESET_KEY] = args.preset
+    return out
+
+
 def _run_fit(args: argparse.Namespace) -> int:
+    from nstress.workflow.layers import parse_assignments, study_settings
     from nstress.workflow.pipeline import FitConfig, fit_tables
 
     for name in ("draws", "tune", "chains"):
         if getattr(args, name) < 1:
             raise NstressError(f"--{name} must be at least 1")
     progress = Progress(args.quiet, args.verbose)
+    study = study_settings(args.preset, parse_assignments(args.set))
+    if study["preset"] is not None:
+        progress(f"starting from preset {study['preset']['name']}: {study['preset']['title']}")
     cfg = FitConfig(
         bin_days=args.bin_days,
+        **study,
         sampler={
             "draws": args.draws,
             "tune": args.tune,
@@ -515,6 +556,7 @@ examples:
   nstress run season.toml --force                      # refit finished units too
   nstress run season.toml --local-cluster 2            # units on a Dask LocalCluster
   nstress run season.toml --scheduler tcp://10.0.0.5:8786
+  nstress run season.toml --set priors.gamma.mu=0.0    # beats the file and its preset
 
 Fits each unit (one per group, or per table: [units] split) into
 RUN_DIR/units/<unit>/, then writes RUN_DIR/ledger.csv, screening.csv,
@@ -531,6 +573,7 @@ The workflow file's schema: DEVELOPERS.md, "Workflow files".
 def _run_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("workflow", metavar="WORKFLOW", type=Path, help="workflow file (.toml)")
     p.add_argument("--out", metavar="DIR", type=Path, help="run directory (overrides the file's)")
+    _study_arguments(p, from_workflow=True)
     _execution_arguments(p)
     _verbosity(p)
 
@@ -558,7 +601,7 @@ def _execution_arguments(p: argparse.ArgumentParser) -> None:
 def _run_run(args: argparse.Namespace) -> int:
     from nstress.workflow.config import load_workflow
 
-    return _execute(load_workflow(args.workflow), args, args.out)
+    return _execute(load_workflow(args.workflow, overrides=_study_overrides(args)), args, args.out)
 
 
 def _execute(wf: Any, args: argparse.Namespace, out: Path | None) -> int:
@@ -650,6 +693,7 @@ def _demo_arguments(p: argparse.ArgumentParser) -> None:
         default=Path("demo_run"),
         help="run directory (default demo_run/)",
     )
+    _study_arguments(p, from_workflow=True)
     _model_arguments(p, from_workflow=True)
     _execution_arguments(p)
 
@@ -660,7 +704,8 @@ def _run_demo(args: argparse.Namespace) -> int:
     keys = ("draws", "tune", "chains", "seed", "sampler")
     sampler = {k: getattr(args, k) for k in keys if getattr(args, k) is not None}
     grid = {"bin_days": args.bin_days} if args.bin_days is not None else {}
-    wf = load_workflow(demo_workflow(), overrides={"sampler": sampler, "grid": grid})
+    overrides = {"sampler": sampler, "grid": grid, **_study_overrides(args)}
+    wf = load_workflow(demo_workflow(), overrides=overrides)
     return _execute(wf, args, args.out)
 
 
@@ -683,6 +728,7 @@ _INIT_EPILOG = (
 examples:
   nstress init colony.csv -o season.toml
   nstress init whiskers.csv plasma.csv -o study/workflow.toml --force
+  nstress init seals.csv -o seals.toml --preset phocid_fast
 
 Reads and checks the table(s), then writes a commented workflow file that
 names them (relative to the file) and lists the groups found; edit it and
@@ -704,24 +750,37 @@ def _init_arguments(p: argparse.ArgumentParser) -> None:
         help="workflow file to write (default workflow.toml)",
     )
     p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    p.add_argument(
+        "--preset",
+        metavar="NAME",
+        help="start the workflow from a natural-history preset (`nstress presets` lists them)",
+    )
     _verbosity(p)
 
 
 def _run_init(args: argparse.Namespace) -> int:
     from nstress.atomic import atomic_write_text
     from nstress.intake import read_samples
+    from nstress.presets import load_preset
     from nstress.workflow.config import load_workflow, starter_workflow
 
     progress = Progress(args.quiet, args.verbose)
     dest = Path(args.output)
     if dest.exists() and not args.force:
         raise NstressError(f"{dest} exists; give --force to overwrite it")
+    if args.preset is not None:
+        load_preset(args.preset)  # an unknown name fails before anything is written
     intake = read_samples([str(t) for t in args.tables])
     s = intake.samples
     groups = sorted(map(str, s["group"].unique())) if len(s) else []
     tissues = sorted(map(str, s["tissue"].unique())) if len(s) else []
     text = starter_workflow(
-        [Path(t) for t in args.tables], dest, groups, tissues, len(intake.ledger)
+        [Path(t) for t in args.tables],
+        dest,
+        groups,
+        tissues,
+        len(intake.ledger),
+        preset=args.preset,
     )
     atomic_write_text(dest, text)
     load_workflow(dest)  # what was written must be a valid workflow
@@ -883,5 +942,55 @@ register(
         description="Power analysis of a sampling design by simulation: detection share and "
         "onset error of fasts against segment length, blood-draw interval, fast length and rate.",
         epilog=_POWER_EPILOG,
+    )
+)
+
+
+# ---------------------------------------------------------------- presets
+
+_PRESETS_EPILOG = (
+    """\
+examples:
+  nstress presets                       # list the presets
+  nstress presets otariid_female        # what it assumes and every value it sets
+
+A preset is a starting point for a kind of animal: priors, tissue
+discrimination, keratin growth and QC settings, each with its source. Name
+one at the top of a workflow file (preset = "NAME"), or give --preset NAME
+to `nstress fit`, `run`, `demo` or `init`. Precedence: package defaults <
+preset < workflow file < command-line options (--set KEY=VALUE).
+
+"""
+    + EXIT_CODES
+)
+
+
+def _presets_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("name", nargs="?", metavar="NAME", help="show this preset")
+
+
+def _run_presets(args: argparse.Namespace) -> int:
+    from nstress.presets import available, describe, load_preset
+
+    if args.name is not None:
+        print(describe(load_preset(args.name)))
+        return EXIT_OK
+    names = available()
+    width = max(len(n) for n in names)
+    for n in names:
+        print(f"{n:<{width}}  {load_preset(n).title}")
+    print('\nShow one with `nstress presets NAME`; use it with preset = "NAME" in a workflow file.')
+    return EXIT_OK
+
+
+register(
+    Command(
+        name="presets",
+        help="list the natural-history presets, or show what one assumes and sets",
+        add_arguments=_presets_arguments,
+        run=_run_presets,
+        description="List the natural-history presets (starting values for a kind of animal, "
+        "each with its source), or show one.",
+        epilog=_PRESETS_EPILOG,
     )
 )

@@ -13,6 +13,11 @@ Schema (version 1)
 ------------------
 Settings that change results (they are hashed; a change refits):
 
+``preset = "NAME"`` (at the top, before the first section)
+    A natural-history preset (:mod:`nstress.presets`) whose values start
+    ``[priors]``, ``[tissues]``, ``[growth]`` and ``[qc]``; the file's own
+    values replace them key by key, the command line's ``--set`` replaces
+    both (:mod:`nstress.workflow.layers`).
 ``[workflow]``
     ``name`` (text; default: the file name), ``title`` (report title),
     ``description`` (free text). Labels only, not hashed.
@@ -365,6 +370,9 @@ SECTIONS = (
     "outputs",
     "execution",
 )
+PRESET_KEY = "preset"
+"""The one top-level key of a workflow file that is not a section: a preset's name."""
+PRESET_NAME = Setting("text")
 EXECUTION_SECTIONS = ("workflow", "design", "outputs", "execution")
 """Sections that never change a fit's results (kept out of the result hash); ``[design]``
 is the power analysis (``nstress power``), a product of its own."""
@@ -462,8 +470,9 @@ def load_workflow(
     path
         The ``.toml`` file.
     overrides
-        ``{section: {key: value}}`` merged over the file before validation
-        (used by ``nstress demo --draws ...``).
+        ``{section: {key: value}}`` merged (table by table) over the file
+        before validation: the command line's options (``nstress demo
+        --draws ...``, ``--set priors.gamma.mu=0``, ``--preset NAME``).
 
     Returns
     -------
@@ -485,22 +494,31 @@ def load_workflow(
         doc = tomllib.loads(raw.decode("utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ConfigError(f"not a valid TOML file: {exc}", file=str(path)) from None
-    for section, values in (overrides or {}).items():
-        doc.setdefault(section, {}).update(values)
-    return validate(doc, path, hashlib.sha256(raw).hexdigest())
+    from nstress.workflow.layers import merge_overrides
+
+    doc = merge_overrides(doc, overrides or {})
+    return validate(doc, path, hashlib.sha256(raw).hexdigest(), command_line=overrides)
 
 
-def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
+def validate(
+    doc: dict[str, Any],
+    path: Path,
+    sha256: str = "",
+    command_line: Mapping[str, Any] | None = None,
+) -> Workflow:
     """Check a parsed workflow document and build the :class:`Workflow`.
 
     Parameters
     ----------
     doc
-        The parsed TOML.
+        The parsed TOML (with the command line's overrides merged in).
     path
         The workflow file (relative paths are relative to its directory).
     sha256
         The file's SHA-256 (provenance).
+    command_line
+        The overrides that came from the command line (the record of a
+        preset says which of its values they replaced).
 
     Returns
     -------
@@ -515,16 +533,7 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
     doc = copy.deepcopy(doc)
     _reject_non_finite(doc, "", file)
     _reject_nul(doc, "", file)
-    schema = _schema()
-    for section, body in doc.items():
-        if section not in SECTIONS:
-            raise ConfigError(
-                f"unknown section [{section}]" + _hint(section, SECTIONS), key=section, file=file
-            )
-        if not isinstance(body, dict):
-            raise ConfigError(f"expected a table, got {_describe(body)}", key=section, file=file)
-        if section in schema:
-            _check_keys(body, schema[section], section, file)
+    _check_sections(doc, SECTIONS, file)
     version = doc.get("workflow", {}).get("version", SCHEMA_VERSION)
     if version > SCHEMA_VERSION:
         raise ConfigError(
@@ -532,8 +541,9 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
             key="workflow.version",
             file=file,
         )
-    tissues = _tissues(doc.get("tissues", {}), doc.get("growth", {}), file)
-    _delegate(doc, tissues, file)
+    from nstress.workflow.layers import study as resolve_study
+
+    study = resolve_study(doc, file, command_line)
 
     base = path.parent
     wf, sampler, grid = doc.get("workflow", {}), doc.get("sampler", {}), doc.get("grid", {})
@@ -548,9 +558,9 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
     fit = FitConfig(
         bin_days=float(grid.get("bin_days", FitConfig.bin_days)),
         knot_days=float(grid.get("knot_days", FitConfig.knot_days)),
-        priors=doc.get("priors", {}),
-        tissues=tissues,
-        qc=doc.get("qc", {}),
+        priors=study["priors"],
+        tissues=study["tissues"],
+        qc=study["qc"],
         sampler={
             "draws": sampler.get("draws", 1000),
             "tune": sampler.get("tune", 1000),
@@ -563,11 +573,12 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
             **{k: sampler[k] for k in ("method", "fast_draws") if k in sampler},
             "backend": execution.get("backend", "auto"),
         },
-        screening=doc.get("screening", {}),
-        diagnostics=doc.get("diagnostics", {}),
+        screening=study["screening"],
+        diagnostics=study["diagnostics"],
         product_draws=sampler.get("product_draws", FitConfig.product_draws),
         progress=False,
         report=bool(doc.get("outputs", {}).get("unit_reports", False)),
+        preset=study["preset"],
     )
     return Workflow(
         path=path,
@@ -587,7 +598,7 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
         run_dir=resolve_run_dir(doc.get("outputs", {}).get("run_dir"), base, path.stem, file),
         unit_reports=fit.report,
         document=doc,
-        design=_design(doc.get("design"), tissues, file),
+        design=_design(doc.get("design"), study["tissues"], file),
     )
 
 
@@ -596,7 +607,7 @@ def _as_list(value: str | list[str]) -> list[str]:
     return [value] if isinstance(value, str) else list(value)
 
 
-def _reject_non_finite(value: Any, key: str, file: str) -> None:
+def _reject_non_finite(value: Any, key: str, file: str | None) -> None:
     """Reject ``nan`` and ``inf`` anywhere in the document."""
     if isinstance(value, float) and not math.isfinite(value):
         raise ConfigError(f"expected a finite number, got {value!r}", key=key, file=file)
@@ -621,8 +632,34 @@ def _reject_nul(value: Any, key: str, file: str) -> None:
             _reject_nul(v, f"{key}[{i}]", file)
 
 
-def _check_keys(body: dict[str, Any], known: dict[str, Setting], where: str, file: str) -> None:
+def _check_sections(doc: dict[str, Any], allowed: tuple[str, ...], file: str | None) -> None:
+    """Check every section's name, that it is a table, and its keys (``preset`` is a text key)."""
+    schema = _schema()
+    for section, body in doc.items():
+        if section == PRESET_KEY:
+            PRESET_NAME.check(body, PRESET_KEY, file)
+            continue
+        if section not in allowed:
+            raise ConfigError(
+                f"unknown section [{section}]" + _hint(section, allowed), key=section, file=file
+            )
+        if not isinstance(body, dict):
+            raise ConfigError(f"expected a table, got {_describe(body)}", key=section, file=file)
+        if section in schema:
+            _check_keys(body, schema[section], section, file)
+
+
+def _check_keys(
+    body: dict[str, Any], known: dict[str, Setting], where: str, file: str | None
+) -> None:
     for key, value in body.items():
+        if key == PRESET_KEY and key not in known:
+            raise ConfigError(
+                f"preset is named at the top of the file, before the first [section]: "
+                f"preset = {toml_text(str(value))}",
+                key=f"{where}.{key}",
+                file=file,
+            )
         if key not in known:
             raise ConfigError(
                 f"unknown key {key!r} in [{where}]" + _hint(key, known),
@@ -633,7 +670,7 @@ def _check_keys(body: dict[str, Any], known: dict[str, Setting], where: str, fil
             known[key].check(value, f"{where}.{key}", file)
 
 
-def _tissues(tissues: dict[str, Any], growth: dict[str, Any], file: str) -> dict[str, Any]:
+def _tissues(tissues: dict[str, Any], growth: dict[str, Any], file: str | None) -> dict[str, Any]:
     """Check ``[tissues.*]`` and ``[growth.*]`` and merge them into tissue overrides."""
     from nstress.tissues import resolve_tissues
 
@@ -677,7 +714,7 @@ def _tissues(tissues: dict[str, Any], growth: dict[str, Any], file: str) -> dict
     return out
 
 
-def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str) -> None:
+def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str | None) -> None:
     """Run the lower layers' own checks of priors, QC and screening settings."""
     from nstress.model.priors import resolve_priors
     from nstress.prep import resolve_config
@@ -726,7 +763,7 @@ def _design(section: dict[str, Any] | None, tissues: dict[str, Any], file: str) 
     return dict(section)
 
 
-def _prefixed(exc: ConfigError, prefix: str, file: str) -> ConfigError:
+def _prefixed(exc: ConfigError, prefix: str, file: str | None) -> ConfigError:
     key = f"{prefix}{exc.key}" if exc.key else prefix.rstrip(".") or None
     return ConfigError(getattr(exc, "detail", str(exc)), key=key, file=file)
 
@@ -821,8 +858,31 @@ def toml_text(value: str) -> str:
     return json.dumps(value, ensure_ascii=False)
 
 
+def _starter_preset(name: str | None) -> str:
+    """Return the ``preset = "NAME"`` lines of a starter file, with what the preset sets."""
+    if name is None:
+        return ""
+    from nstress.presets import format_value, load_preset
+
+    p = load_preset(name)
+    lines = [
+        "",
+        f"# Starting values: {p.title}.",
+        "# The preset sets the values below (`nstress presets NAME` shows their sources);",
+        "# a section of this file or --set KEY=VALUE on the command line overrides any of them.",
+    ]
+    lines += [f"#   {v.key} = {format_value(v.value)}" for v in p.values]
+    lines.append(f"preset = {toml_text(p.name)}")
+    return "\n".join(lines) + "\n"
+
+
 def starter_workflow(
-    tables: list[Path], dest: Path, groups: list[str], tissues: list[str], rows: int
+    tables: list[Path],
+    dest: Path,
+    groups: list[str],
+    tissues: list[str],
+    rows: int,
+    preset: str | None = None,
 ) -> str:
     """Return the text of a starter workflow file for ``tables``.
 
@@ -839,11 +899,19 @@ def starter_workflow(
         The tissues found.
     rows
         Number of input rows (for the comment).
+    preset
+        A natural-history preset to start from (written as ``preset =
+        "NAME"`` at the top), or ``None``.
 
     Returns
     -------
     str
         A workflow that :func:`load_workflow` accepts.
+
+    Raises
+    ------
+    ConfigError
+        An unknown preset (with a "did you mean" hint).
     """
     import os
 
@@ -854,7 +922,7 @@ def starter_workflow(
 # nstress workflow (schema {SCHEMA_VERSION}); see `nstress run --help` and DEVELOPERS.md.
 # Written by `nstress init` for {len(tables)} table(s), {rows} row(s).
 # Tissues found: {", ".join(tissues) or "none"}.
-
+{_starter_preset(preset)}
 [workflow]
 name = {toml_text(dest.stem)}
 

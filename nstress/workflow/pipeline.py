@@ -63,6 +63,15 @@ class FitConfig:
     model
         Further :class:`nstress.model.build.ModelSpec` settings by name (for
         example ``diet_clock`` or ``onset_step_days``); they change results.
+    preset
+        The natural-history preset the settings started from, or ``None``:
+        the record of :func:`nstress.workflow.layers.study` (plain data: name,
+        title, description, cautions and every value it set with its source,
+        whether a workflow file or the command line replaced it, and the
+        value used). Its values are already merged into ``priors``,
+        ``tissues`` and ``qc``. The name and the values are hashed with the
+        result settings (:meth:`result_config`); the whole record goes into
+        ``manifest.json`` and the report.
     """
 
     bin_days: float = 4.0
@@ -79,6 +88,7 @@ class FitConfig:
     progress: bool = True
     report: bool = True
     model: dict[str, Any] = field(default_factory=dict)
+    preset: dict[str, Any] | None = None
 
     def result_config(self) -> dict[str, Any]:
         """Return the settings that change results, as plain data (hashed for caching)."""
@@ -91,6 +101,10 @@ class FitConfig:
             d.pop("group")
         if not d["model"]:
             d.pop("model")
+        if d["preset"] is None:  # a fit without a preset hashes as it always did
+            d.pop("preset")
+        else:  # its name and values, not its prose
+            d["preset"] = {"name": d["preset"]["name"], "values": d["preset"]["values"]}
         d["sampler"] = {k: v for k, v in d["sampler"].items() if k not in EXECUTION_ONLY}
         return d
 
@@ -347,6 +361,7 @@ def fit_tables(
             "status": screen["status"].value_counts().to_dict(),
         },
         "prep_report": prepared.report,
+        "preset": cfg.preset,
         "files": sorted(p.name for p in out.iterdir() if not p.name.startswith(".")),
     }
     atomic_write_text(out / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))

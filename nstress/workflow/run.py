@@ -826,6 +826,7 @@ def run_workflow(
             "inputs": inspection.sources,
             "config": wf.result_config(),
             "config_hash": config_hash(inspection.sources, wf.result_config()),
+            "preset": wf.fit.preset,
             "seed": wf.seed,
             "execution": {
                 "workers": n_workers,
