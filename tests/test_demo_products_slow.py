@@ -70,3 +70,19 @@ def test_demo_figures_have_axes_and_labels(demo_fit):
     assert len(ov.axes[0].get_yticklabels()) == len(sc)
     ppc = figs.ppc_figure(pr)
     assert len([ax for ax in ppc.axes if ax.collections or ax.lines]) >= 4  # tissues x isotopes
+
+
+def test_demo_run_reports_what_its_design_can_detect():
+    # only the README's demo command runs the workflow's [design] power step
+    done = os.environ.get("NSTRESS_DEMO_RUN")
+    if not (done and (Path(done) / "manifest.json").exists()):
+        pytest.skip("needs the demo run of .ci/run (NSTRESS_DEMO_RUN)")
+    import json
+
+    run = Path(done)
+    assert json.loads((run / "manifest.json").read_text())["power"]["ok"] is True
+    table = pd.read_csv(run / "power" / "power.csv")
+    assert set(table["fast_days"]) == {10.0, 20.0, 40.0}
+    assert (table["segment_mm"] == table["segment_mm"].iloc[0]).all()  # the data's own design
+    page = (run / "report.html").read_text(encoding="utf-8")
+    assert "What this sampling design can detect" in page and "The data's own design" in page

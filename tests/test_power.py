@@ -139,9 +139,9 @@ def test_detection_limits_take_the_shortest_fast_reaching_power():
     assert math.isnan(lim.loc[6.0, "limit_fast_days"])
     assert lim.loc[6.0, "longest_fast_days"] == 40.0
     text = describe_limits(lim.reset_index(), 0.8)
-    assert text[0].startswith("1 mm segments, no blood: detected in ≥ 80% of animals")
+    assert text[0].startswith("1 mm segments, no blood: fasts detected in ≥ 80% of the animals")
     assert "fasts of ≥ 20 d" in text[0]
-    assert "no simulated fast (up to 40 d)" in text[1]
+    assert "at 0.05 ‰/d none up to 40 d (the longest simulated)" in text[1]
 
 
 # ------------------------------------------------------------ designs

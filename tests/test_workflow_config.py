@@ -178,6 +178,8 @@ def test_demo_workflow_keeps_the_demo_defaults():
     s = wf.fit.sampler
     assert (s["draws"], s["tune"], s["chains"]) == (1000, 1000, 2)
     assert wf.split == "table"
+    # the demo also reports what its own sampling design can detect (power step)
+    assert wf.design is not None and wf.design.get("for_data", True)
 
 
 def test_unit_seeds_depend_on_name_not_order(folder):

@@ -366,14 +366,15 @@ def describe_limits(limits: pd.DataFrame, power: float) -> list[str]:
         )
         parts = []
         for _, r in g.iterrows():
+            rate = f"at {r['rate_per_day']:g} ‰/d"
             if math.isnan(r["limit_fast_days"]):
-                parts.append(
-                    f"at {r['rate_per_day']:g} ‰/d no simulated fast "
-                    f"(up to {r['longest_fast_days']:g} d)"
-                )
+                longest = r["longest_fast_days"]
+                parts.append(f"{rate} none up to {longest:g} d (the longest simulated)")
             else:
-                parts.append(f"at {r['rate_per_day']:g} ‰/d fasts of ≥ {r['limit_fast_days']:g} d")
-        out.append(f"{where}: detected in ≥ {power:.0%} of animals " + "; ".join(parts) + ".")
+                parts.append(f"{rate} fasts of ≥ {r['limit_fast_days']:g} d")
+        out.append(
+            f"{where}: fasts detected in ≥ {power:.0%} of the animals: " + "; ".join(parts) + "."
+        )
     return out
 
 
@@ -419,6 +420,8 @@ def run_power(
     growth = tissues[design.keratin_tissue].growth_mm_per_day
     sampler = {**base.sampler, "method": design.method}
     cfg = dataclasses.replace(base, sampler=sampler, report=False, progress=False, group=None)
+    if work_dir is not None:
+        Path(work_dir).mkdir(parents=True, exist_ok=True)
     scratch = Path(tempfile.mkdtemp(prefix="nstress-power-", dir=work_dir))
     rows, t0 = [], time.perf_counter()
     designs = [(s, d) for s in design.segment_mm for d in design.draw_interval_days]
