@@ -44,14 +44,23 @@ def workflow(tmp_path: Path, monkeypatch) -> Path:
         '[inputs]\ntables = ["colony.csv"]\n[sampler]\nseed = 3\nchains = 1\n'
         '[outputs]\nrun_dir = "run"\n[execution]\nworkers = 0\n'
     )
-    with monkeypatch.context() as mp:
-        from nstress.products import report
-        from nstress.workflow import pipeline
+    _stub_units(monkeypatch)
+    return path
 
-        mp.setattr(pipeline, "fit_tables", pipeline.fit_tables)
-        mp.setattr(report, "write_report", report.write_report)
-        install()  # replaced back by the context on exit
-        yield path
+
+def _stub_units(monkeypatch) -> None:
+    """Stub the unit fit and the report through ``monkeypatch``.
+
+    The originals are saved on the test's own ``monkeypatch``, so that its undo
+    (last in, first out) restores them even after a test patches ``fit_tables``
+    again; a separate patch context would hand the stub back to later tests.
+    """
+    from nstress.products import report
+    from nstress.workflow import pipeline
+
+    monkeypatch.setattr(pipeline, "fit_tables", pipeline.fit_tables)
+    monkeypatch.setattr(report, "write_report", report.write_report)
+    install()
 
 
 def leftovers(root: Path) -> list[Path]:
@@ -134,7 +143,7 @@ def test_disk_full_while_merging(workflow, monkeypatch, capsys):
     assert not (out / "manifest.json").exists()  # never marked finished
     assert not (out / "screening.csv").exists() and not leftovers(out)
     monkeypatch.undo()
-    install()
+    _stub_units(monkeypatch)
     assert main(["run", str(workflow)]) == 0  # space again: the units are reused
     assert "skipping unit north" in capsys.readouterr().err
     assert run_manifest(out)["complete"] is True
