@@ -62,6 +62,12 @@ Settings that change results (they are hashed; a change refits):
 ``[diagnostics]``
     Pass marks: ``rhat_max``, ``ess_bulk_min``, ``ess_tail_min``,
     ``divergences_max``, ``ppc_coverage_min``.
+``[trophic]``
+    Amino-acid settings (:mod:`nstress.aminoacids`): ``food_web``
+    (``"aquatic"``, default, ``"terrestrial_c3"``, ``"terrestrial_c4"``)
+    selects β and TDF of the trophic position; ``beta``, ``beta_sd``,
+    ``tdf`` (> 0), ``tdf_sd`` (‰) override them; ``phe_baseline`` (default
+    true) lets δ15N_Phe set each sample's baseline offset in the model.
 
 Settings that only change how a run executes (not hashed):
 
@@ -271,6 +277,7 @@ GROWTH_FIELDS = {  # [growth.NAME] key -> Tissue field
 
 def _schema() -> dict[str, dict[str, Setting]]:
     """Fixed-key sections (``tissues``, ``growth``, ``priors`` have named sub-tables)."""
+    from nstress.aminoacids import FOOD_WEBS
     from nstress.model.diagnose import Thresholds
     from nstress.model.fit import BACKENDS, METHODS, SAMPLERS
     from nstress.prep import DEFAULT_CONFIG
@@ -297,6 +304,14 @@ def _schema() -> dict[str, dict[str, Setting]]:
         },
         "screening": {f.name: NONNEG for f in dataclasses.fields(ScreeningRules)},
         "diagnostics": {f.name: NONNEG for f in dataclasses.fields(Thresholds)},
+        "trophic": {
+            "food_web": Setting("text", choices=tuple(FOOD_WEBS)),
+            "beta": NUMBER,
+            "beta_sd": NONNEG,
+            "tdf": POSITIVE,
+            "tdf_sd": NONNEG,
+            "phe_baseline": FLAG,
+        },
         "outputs": {"run_dir": TEXT, "unit_reports": FLAG},
         "execution": {
             "workers": Setting("int", low=0),
@@ -321,6 +336,7 @@ SECTIONS = (
     "sampler",
     "screening",
     "diagnostics",
+    "trophic",
     "outputs",
     "execution",
 )
@@ -520,6 +536,7 @@ def validate(doc: dict[str, Any], path: Path, sha256: str = "") -> Workflow:
         },
         screening=doc.get("screening", {}),
         diagnostics=doc.get("diagnostics", {}),
+        trophic=doc.get("trophic", {}),
         product_draws=sampler.get("product_draws", FitConfig.product_draws),
         progress=False,
         report=bool(doc.get("outputs", {}).get("unit_reports", False)),
@@ -633,6 +650,7 @@ def _tissues(tissues: dict[str, Any], growth: dict[str, Any], file: str) -> dict
 
 def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str) -> None:
     """Run the lower layers' own checks of priors, QC and screening settings."""
+    from nstress.aminoacids import resolve_trophic
     from nstress.model.priors import resolve_priors
     from nstress.prep import resolve_config
     from nstress.products.screening import ScreeningRules
@@ -642,6 +660,7 @@ def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str) -> None:
         ("", lambda: resolve_priors(doc.get("priors"))),
         ("qc.", lambda: resolve_config(doc.get("qc"), resolve_tissues(tissues))),
         ("", lambda: ScreeningRules.from_config(doc.get("screening"))),
+        ("trophic.", lambda: resolve_trophic(doc.get("trophic"))),
     ]
     for prefix, check in checks:
         try:
