@@ -130,6 +130,11 @@ class TrophicSettings:
         Whether δ15N_Phe sets a per-sample baseline offset of the bulk δ15N
         in the model (default true; false ignores Phe in the model and keeps
         it for the trophic position only).
+    phe_mode
+        With ``phe_baseline``: ``"interpolate"`` (default; a sample without
+        Phe lying between two samples with Phe of the same animal and tissue
+        gets the interpolated offset) or ``"measured"`` (only samples with
+        Phe get an offset); see :mod:`nstress.prep.amino`.
     """
 
     food_web: str = DEFAULT_FOOD_WEB
@@ -138,13 +143,22 @@ class TrophicSettings:
     tdf: float = FOOD_WEBS[DEFAULT_FOOD_WEB].tdf
     tdf_sd: float = FOOD_WEBS[DEFAULT_FOOD_WEB].tdf_sd
     phe_baseline: bool = True
+    phe_mode: str = "interpolate"
+
+    @property
+    def baseline_mode(self) -> str:
+        """Mode of :func:`nstress.prep.amino.phe_baseline_offsets`: ``phe_mode`` or ``"off"``."""
+        return self.phe_mode if self.phe_baseline else "off"
 
     def to_dict(self) -> dict[str, Any]:
         """Plain data (for manifests and reports)."""
         return asdict(self)
 
 
-TROPHIC_KEYS = ("food_web", "beta", "beta_sd", "tdf", "tdf_sd", "phe_baseline")
+PHE_MODES = ("interpolate", "measured")
+"""Values of the ``phe_mode`` setting (``phe_baseline = false`` switches Phe offsets off)."""
+
+TROPHIC_KEYS = ("food_web", "beta", "beta_sd", "tdf", "tdf_sd", "phe_baseline", "phe_mode")
 
 
 def resolve_trophic(config: Mapping[str, Any] | None) -> TrophicSettings:
@@ -155,7 +169,8 @@ def resolve_trophic(config: Mapping[str, Any] | None) -> TrophicSettings:
     config
         ``food_web`` (one of :data:`FOOD_WEBS`, default ``"aquatic"``),
         optional overrides ``beta``, ``beta_sd``, ``tdf`` (> 0), ``tdf_sd``
-        (SDs ≥ 0, ‰) and ``phe_baseline`` (true/false); or ``None``.
+        (SDs ≥ 0, ‰), ``phe_baseline`` (true/false) and ``phe_mode``
+        (``"interpolate"``, default, or ``"measured"``); or ``None``.
 
     Returns
     -------
@@ -164,8 +179,9 @@ def resolve_trophic(config: Mapping[str, Any] | None) -> TrophicSettings:
     Raises
     ------
     ConfigError
-        Unknown key (with a "did you mean" hint), unknown food web, a value of
-        the wrong type or out of range; the key is named.
+        Unknown key (with a "did you mean" hint), unknown food web or Phe
+        mode, a value of the wrong type or out of range, ``phe_mode`` given
+        with ``phe_baseline = false``; the key is named.
     """
     cfg = dict(config or {})
     for key in cfg:
@@ -194,4 +210,13 @@ def resolve_trophic(config: Mapping[str, Any] | None) -> TrophicSettings:
     phe = cfg.get("phe_baseline", True)
     if not isinstance(phe, bool):
         raise ConfigError(f"expected true or false, got {phe!r}", key="phe_baseline")
-    return TrophicSettings(food_web=web, phe_baseline=phe, **values)
+    mode = cfg.get("phe_mode", "interpolate")
+    if mode not in PHE_MODES:
+        raise ConfigError(
+            f"unknown Phe mode {mode!r}; expected one of {list(PHE_MODES)}", key="phe_mode"
+        )
+    if not phe and "phe_mode" in cfg:
+        raise ConfigError(
+            "phe_mode has no effect with phe_baseline = false; drop one of them", key="phe_mode"
+        )
+    return TrophicSettings(food_web=web, phe_baseline=phe, phe_mode=mode, **values)

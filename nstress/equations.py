@@ -681,7 +681,6 @@ def trophic_position_glu_phe(
     beta, tdf = np.asarray(beta, float), np.asarray(tdf, float)
     d = glu - phe - beta
     tp = d / tdf + 1.0
-    var = (
-        np.square(sd_glu) + np.square(sd_phe) + np.square(sd_beta)
-    ) / tdf**2 + d**2 * np.square(sd_tdf) / tdf**4
+    analytical = np.square(sd_glu) + np.square(sd_phe) + np.square(sd_beta)
+    var = analytical / tdf**2 + d**2 * np.square(sd_tdf) / tdf**4
     return tp, np.sqrt(var)

@@ -192,7 +192,7 @@ def build_timebase(
     tissues: dict[str, Tissue] | None = None,
     *,
     bin_width: float = DEFAULT_BIN_DAYS,
-    phe_baseline: bool = True,
+    phe_mode: str = "interpolate",
 ) -> TimeBase:
     """Place the prepared samples in time.
 
@@ -205,9 +205,14 @@ def build_timebase(
         Tissue registry (default :data:`nstress.tissues.DEFAULT_TISSUES`).
     bin_width
         Grid bin width Δ (days).
-    phe_baseline
-        Let each row's δ15N_Phe set a known offset of its expected bulk δ15N
-        (:mod:`nstress.prep.amino`); ``False`` ignores Phe here.
+    phe_mode
+        How δ15N_Phe sets a known offset of each row's expected bulk δ15N
+        (:func:`nstress.prep.amino.phe_baseline_offsets`): ``"interpolate"``
+        (default; rows between two Phe rows of one animal and tissue get the
+        interpolated offset), ``"measured"`` (Phe rows only) or ``"off"``
+        (Phe is ignored here). Rows are placed in time for this by a blood
+        draw's date or a keratin segment's growth-window midpoint at nominal
+        growth.
 
     Returns
     -------
@@ -324,10 +329,8 @@ def build_timebase(
     origin_offset = start - group_start
 
     t_rel = t_event - start[ind_codes]
-    if phe_baseline:
-        aa_offset, aa_var = phe_baseline_offsets(df)
-    else:
-        aa_offset, aa_var = np.zeros(n), np.zeros(n)
+    t_mid = np.where(is_ker, t_event - 0.5 * (h_lo + h_hi), t_event)  # nominal growth
+    aa_offset, aa_var = phe_baseline_offsets(df, t_mid=t_mid, mode=phe_mode)
     df["_individual_index"] = ind_codes
     df["_t_days"] = t_rel
 

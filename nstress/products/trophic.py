@@ -58,6 +58,39 @@ TROPHIC_COLUMNS = [
     "tdf",
     "tdf_sd",
 ]
+TROPHIC_UNITS: dict[str, str] = {
+    "individual": "label",
+    "group": "label",
+    "tissue": "label",
+    "tissue_class": "label (keratin or blood)",
+    "sample_id": "label",
+    "date": "ISO 8601 date",
+    "collected": "ISO 8601 date",
+    "position_mm": "mm from the growing end",
+    "d15N_Glu": "per mil vs AIR",
+    "d15N_Phe": "per mil vs AIR",
+    "sd_d15N_Glu": "per mil",
+    "sd_d15N_Phe": "per mil",
+    "trophic_position": "trophic level (1 = primary producer)",
+    "trophic_position_sd": "trophic levels",
+    "phe_baseline_offset_d15N": "per mil (d15N vs AIR)",
+    "food_web": "label",
+    "beta": "per mil",
+    "beta_sd": "per mil",
+    "tdf": "per mil per trophic level",
+    "tdf_sd": "per mil per trophic level",
+}
+"""Unit of every column of ``trophic_position.csv`` (written to ``manifest.json``)."""
+
+SCREENING_UNITS: dict[str, str] = {
+    "trophic_position_median": "trophic level",
+    "trophic_position_mean": "trophic level",
+    "trophic_position_sd": "trophic levels",
+    "n_aa_samples": "count",
+    "n_phe_samples": "count",
+}
+"""Unit of every trophic column of ``screening.csv``."""
+
 SCREENING_COLUMNS = [
     "trophic_position_median",
     "trophic_position_mean",
@@ -76,7 +109,9 @@ def _column(frame: pd.DataFrame, name: str) -> np.ndarray:
 def has_amino_acids(tb: TimeBase) -> bool:
     """Whether any placed sample has a δ15N_Phe or δ15N_Glu value."""
     s = tb.samples
-    return bool(np.isfinite(_column(s, "d15N_Phe")).any() or np.isfinite(_column(s, "d15N_Glu")).any())
+    return bool(
+        np.isfinite(_column(s, "d15N_Phe")).any() or np.isfinite(_column(s, "d15N_Glu")).any()
+    )
 
 
 def trophic_positions(

@@ -67,7 +67,10 @@ Settings that change results (they are hashed; a change refits):
     (``"aquatic"``, default, ``"terrestrial_c3"``, ``"terrestrial_c4"``)
     selects β and TDF of the trophic position; ``beta``, ``beta_sd``,
     ``tdf`` (> 0), ``tdf_sd`` (‰) override them; ``phe_baseline`` (default
-    true) lets δ15N_Phe set each sample's baseline offset in the model.
+    true) lets δ15N_Phe set each sample's baseline offset in the model;
+    ``phe_mode`` (``"interpolate"``, default: a sample without Phe between
+    two with Phe of the same animal and tissue gets the interpolated offset;
+    ``"measured"``: only samples with Phe get one).
 
 Settings that only change how a run executes (not hashed):
 
@@ -277,7 +280,7 @@ GROWTH_FIELDS = {  # [growth.NAME] key -> Tissue field
 
 def _schema() -> dict[str, dict[str, Setting]]:
     """Fixed-key sections (``tissues``, ``growth``, ``priors`` have named sub-tables)."""
-    from nstress.aminoacids import FOOD_WEBS
+    from nstress.aminoacids import FOOD_WEBS, PHE_MODES
     from nstress.model.diagnose import Thresholds
     from nstress.model.fit import BACKENDS, METHODS, SAMPLERS
     from nstress.prep import DEFAULT_CONFIG
@@ -311,6 +314,7 @@ def _schema() -> dict[str, dict[str, Setting]]:
             "tdf": POSITIVE,
             "tdf_sd": NONNEG,
             "phe_baseline": FLAG,
+            "phe_mode": Setting("text", choices=PHE_MODES),
         },
         "outputs": {"run_dir": TEXT, "unit_reports": FLAG},
         "execution": {

@@ -66,7 +66,7 @@ class FitConfig:
     trophic
         Amino-acid settings (:func:`nstress.aminoacids.resolve_trophic`):
         ``food_web``, overrides of ``beta``, ``beta_sd``, ``tdf``, ``tdf_sd``
-        and ``phe_baseline``; they change results.
+        ``phe_baseline`` and ``phe_mode``; they change results.
     """
 
     bin_days: float = 4.0
@@ -218,6 +218,8 @@ def fit_tables(
     from nstress.products.screening import ScreeningRules, colony_summary, screening_table
     from nstress.products.timelines import compute_products
     from nstress.products.trophic import (
+        SCREENING_UNITS,
+        TROPHIC_UNITS,
         add_screening_columns,
         has_amino_acids,
         trophic_positions,
@@ -246,7 +248,7 @@ def fit_tables(
     used = used[~used["key"].isin(excluded)]
     if cfg.group is not None:
         used = _only_group(used, prepared, cfg.group)
-    tb = build_timebase(used, tissues, bin_width=cfg.bin_days, phe_baseline=trophic.phe_baseline)
+    tb = build_timebase(used, tissues, bin_width=cfg.bin_days, phe_mode=trophic.baseline_mode)
     timings["intake_prep_s"] = time.perf_counter() - t_start
     say(f"{tb.n_individuals} individuals, {len(used)} samples, tissues {', '.join(tb.tissues)}")
     t0 = time.perf_counter()
@@ -383,6 +385,10 @@ def fit_tables(
                     **trophic.to_dict(),
                     "samples_with_pair": int(len(tp_rows)),
                     "samples_with_phe": int(screen["n_phe_samples"].sum()),
+                    "column_units": {
+                        "trophic_position.csv": TROPHIC_UNITS,
+                        "screening.csv": SCREENING_UNITS,
+                    },
                 }
             }
             if amino
