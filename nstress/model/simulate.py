@@ -38,8 +38,9 @@ Kinds of animal
 
 Amino acids (optional, :attr:`ColonySpec.amino_acid_every`)
 -----------------------------------------------------------
-Every k-th sample of each animal gets δ15N of phenylalanine and glutamic
-acid: Phe = the animal's Phe level + PHE_TDF·(TP − 1) + the baseline path
+Every k-th sample of each animal and tissue (in table order: a whisker's
+segments from the root, blood draws by date) gets δ15N of phenylalanine and
+glutamic acid: Phe = the animal's Phe level + PHE_TDF·(TP − 1) + the baseline path
 over the sample's window (the same forward model and kernels as the bulk
 values, :func:`nstress.model.forward.predict`) + noise, and
 Glu = Phe + β + TDF·(TP − 1) + noise (Chikaraishi et al. 2009), with TP the
@@ -237,8 +238,9 @@ class ColonySpec:
         discrimination, half-lives, growth and growth SD come from here.
     amino_acid_every
         0 (default): no amino-acid columns. k ≥ 1: every k-th sample of each
-        animal (in table order) gets ``d15N_Phe`` and ``d15N_Glu`` with their
-        SDs (see the module docstring).
+        animal and tissue (in table order, the first included) gets
+        ``d15N_Phe`` and ``d15N_Glu`` with their SDs (see the module
+        docstring).
     amino_acid_sd
         Analytical SD of the amino-acid values (‰), written to the sd columns
         and used as their noise.
@@ -847,12 +849,12 @@ TROPHIC_STEP_D15N = 3.4
 
 
 def _amino_acid_columns(spec, table, tb, aa: _AminoTruth) -> pd.DataFrame:
-    """Write ``d15N_Phe``/``d15N_Glu`` (and SDs) on every k-th sample of each animal."""
+    """Write ``d15N_Phe``/``d15N_Glu`` (and SDs) on every k-th sample of each animal and tissue."""
     n = len(table)
     if spec.amino_acid_every == 0:
         return table
     web = FOOD_WEBS[spec.food_web]
-    rank = table.groupby("individual", sort=False).cumcount().to_numpy()
+    rank = table.groupby(["individual", "tissue"], sort=False).cumcount().to_numpy()
     pick = rank % spec.amino_acid_every == 0
     base = np.full(n, np.nan)
     tp = np.full(n, np.nan)
