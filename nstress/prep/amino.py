@@ -26,12 +26,21 @@ third segment only. With ``mode="interpolate"`` (the default) a row without
 Phe that lies *between* two Phe rows of the same animal and tissue (in time:
 a blood draw's date, a keratin segment's nominal growth-window midpoint)
 gets the linear interpolation w·b_a + (1 − w)·b_b of their offsets, with
-variance w²·Var(b_a) + (1 − w)²·Var(b_b). Without it, the rows between
-measured ones still carry the baseline's rise unexplained, and a fit on
-simulated animals with a baseline shift and Phe on every second segment read
-them as catabolism as often as without Phe. ``mode="measured"`` uses the
-measured rows only; rows outside the span of an animal-tissue's Phe rows
-have offset 0 in both modes (nothing is extrapolated).
+variance w²·Var(b_a) + (1 − w)²·Var(b_b), w = (t_b − t)/(t_b − t_a) the
+weight of the earlier row a. Without it, the rows between measured ones
+still carry the baseline's rise unexplained: in fast-mode fits of a
+synthetic colony (six animals with a 1.5-2.5 ‰ baseline rise, Phe SD 0.5 ‰
+on every second sample of each animal and tissue) the mean P(episode) of
+those animals was 0.92 without Phe, 0.88 with ``mode="measured"`` and 0.34
+with ``mode="interpolate"`` (``tests/test_aminoacids.py``). ``"measured"``
+uses the measured rows only; rows outside the span of an animal-tissue's Phe
+rows have offset 0 in both modes (nothing is extrapolated). ``"off"``
+ignores Phe.
+
+The price: a row's Phe noise enters its bulk δ15N observation SD (0.5 ‰
+against a bulk 0.15 ‰), so the bulk δ15N of rows with an offset says less
+about a real fast too (the one faster of that colony that was found
+without Phe fell from 0.88 to 0.42).
 
 Rows without an offset keep offset 0 and unchanged variance. Left as
 simplifications: the offsets of one animal and tissue share the error of
