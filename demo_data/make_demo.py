@@ -28,6 +28,23 @@ DEMO_SPEC = ColonySpec(
 )
 """The demo colony: 18 females per colony, every one with a whisker, half with serial blood."""
 
+AMINO_SPEC = ColonySpec(
+    n_individuals=12,
+    seed=20250310,
+    groups=("Greyhaven",),
+    id_prefixes=("GH",),
+    breeding_dates=("2024-12-01",),
+    diet_means=((12.3, -16.8),),
+    kind_shares={"faster": 0.34, "baseline_shift": 0.33, "trophic_shift": 0.33},
+    amino_acid_every=2,
+    food_web="aquatic",
+)
+"""A third invented colony with compound-specific δ15N (Glu, Phe) on every second sample.
+
+Its animals fast, or see the food web's baseline rise (bulk δ15N and Phe together), or
+shift their diet; written to ``demo_data/amino_acids/``.
+"""
+
 
 def main(folder: Path = HERE) -> dict[str, Path]:
     """Simulate the demo colony and write its CSV files into ``folder``.
@@ -40,7 +57,8 @@ def main(folder: Path = HERE) -> dict[str, Path]:
     Returns
     -------
     dict
-        Paths of ``colony_samples.csv``, ``truth_individuals.csv`` and ``truth_bins.csv``.
+        Paths of ``colony_samples.csv``, ``truth_individuals.csv`` and ``truth_bins.csv``,
+        and (keys prefixed ``amino_``) those of ``amino_acids/``.
     """
     sim = simulate_colony(DEMO_SPEC)
     paths = write_simulation(sim, folder, samples_name="colony_samples.csv")
@@ -50,7 +68,14 @@ def main(folder: Path = HERE) -> dict[str, Path]:
         f"({int(ti['has_blood'].sum())} with blood) to {folder}",
         file=sys.stderr,
     )
-    return paths
+    amino = simulate_colony(AMINO_SPEC)
+    aa_paths = write_simulation(amino, folder / "amino_acids", samples_name="amino_samples.csv")
+    print(
+        f"wrote {len(amino.table)} samples of {len(amino.truth_individuals)} synthetic animals "
+        f"with amino acids to {folder / 'amino_acids'}",
+        file=sys.stderr,
+    )
+    return {**paths, **{f"amino_{k}": v for k, v in aa_paths.items()}}
 
 
 if __name__ == "__main__":

@@ -632,3 +632,55 @@ def walk_basis(t: np.ndarray, knots: np.ndarray) -> np.ndarray:
     """
     B = knot_basis(t, knots)
     return B @ cumulative_matrix(len(knots))[:, 1:]
+
+
+# --------------------------------------------------------------------------
+# compound-specific amino acids: trophic position from glutamic acid and phenylalanine
+# --------------------------------------------------------------------------
+def trophic_position_glu_phe(
+    d15n_glu: Array,
+    d15n_phe: Array,
+    beta: Array,
+    tdf: Array,
+    sd_glu: Array = 0.0,
+    sd_phe: Array = 0.0,
+    sd_beta: Array = 0.0,
+    sd_tdf: Array = 0.0,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Trophic position from δ15N of glutamic acid and phenylalanine, with its SD.
+
+    TP = (δ15N_Glu − δ15N_Phe − β) / TDF + 1 (Chikaraishi et al. 2009,
+    Limnol. Oceanogr. Methods 7:740), with β the Glu − Phe difference of the
+    food web's primary producers and TDF the trophic discrimination of
+    Glu − Phe per trophic level.
+
+    The SD is propagated to first order (delta method), the four inputs
+    independent: with d = δ15N_Glu − δ15N_Phe − β,
+
+        Var(TP) = (sd_glu² + sd_phe² + sd_beta²) / TDF² + d² · sd_tdf² / TDF⁴.
+
+    Parameters
+    ----------
+    d15n_glu, d15n_phe
+        δ15N of glutamic acid and phenylalanine (‰ vs AIR).
+    beta
+        β (‰).
+    tdf
+        TDF of Glu − Phe (‰ per trophic level, > 0).
+    sd_glu, sd_phe
+        Analytical SDs of the two amino acids (‰).
+    sd_beta, sd_tdf
+        SDs of β and TDF (‰).
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        ``(tp, sd)``, broadcast over the inputs (NaN where an input is NaN).
+    """
+    glu, phe = np.asarray(d15n_glu, float), np.asarray(d15n_phe, float)
+    beta, tdf = np.asarray(beta, float), np.asarray(tdf, float)
+    d = glu - phe - beta
+    tp = d / tdf + 1.0
+    analytical = np.square(sd_glu) + np.square(sd_phe) + np.square(sd_beta)
+    var = analytical / tdf**2 + d**2 * np.square(sd_tdf) / tdf**4
+    return tp, np.sqrt(var)

@@ -36,6 +36,11 @@ column                      accepted headers (compact key)
 ``lipid_extracted``         lipidextracted, lipidextraction, lipidextract, delipidated,
                             lipidremoved
 ``sd_d15N`` / ``sd_d13C``   sdd15n, d15nsd, sd15n (C likewise)
+``d15N_Glu``                d15nglu, d15nglx, d15nglutamicacid, d15nglutamate, glud15n
+                            (``δ15N Glu (‰ vs AIR)``); Glx: Glu plus Gln, which acid
+                            hydrolysis turns into Glu (common practice)
+``d15N_Phe``                d15nphe, d15nphenylalanine, phed15n
+``sd_d15N_Glu``             sdd15nglu, d15nglusd, sdglu, sdd15nglx (Phe likewise)
 ``growth_mm_per_day``       growthmmperday, growthmmday, growthmmd, growthratemmperday,
                             growthratemmday, growthratemmd
 ``growth_sd_mm_per_day``    growthsdmmperday, growthsdmmday, growthsdmmd, growthratesdmmperday
@@ -75,6 +80,10 @@ NUMERIC = (
     "d13C",
     "sd_d15N",
     "sd_d13C",
+    "d15N_Glu",
+    "d15N_Phe",
+    "sd_d15N_Glu",
+    "sd_d15N_Phe",
     "position_mm",
     "segment_length_mm",
     "pct_C",
@@ -88,6 +97,8 @@ DATES = ("collected", "date")
 BOOLEANS = ("lipid_extracted",)
 CANONICAL = TEXT + NUMERIC + DATES + BOOLEANS
 ISOTOPES = ("d15N", "d13C")
+AMINO_ACIDS = ("d15N_Glu", "d15N_Phe")
+"""Compound-specific δ15N of glutamic acid and phenylalanine (‰ vs AIR), optional."""
 
 ALIASES: dict[str, tuple[str, ...]] = {
     "individual": ("individual", "individualid", "indiv", "ind", "animal", "animalid"),
@@ -121,6 +132,10 @@ ALIASES: dict[str, tuple[str, ...]] = {
     ),
     "sd_d15N": ("sdd15n", "d15nsd", "sd15n"),
     "sd_d13C": ("sdd13c", "d13csd", "sd13c"),
+    "d15N_Glu": ("d15nglu", "d15nglx", "d15nglutamicacid", "d15nglutamate", "glud15n"),
+    "d15N_Phe": ("d15nphe", "d15nphenylalanine", "phed15n"),
+    "sd_d15N_Glu": ("sdd15nglu", "d15nglusd", "sdglu", "sdd15nglx"),
+    "sd_d15N_Phe": ("sdd15nphe", "d15nphesd", "sdphe"),
     "growth_mm_per_day": (
         "growthmmperday",
         "growthmmday",

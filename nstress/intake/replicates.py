@@ -23,7 +23,9 @@ Rows of the same ``individual`` and ``tissue``, with the same
 and the same ``lipid_extracted`` state, are replicate analyses of one
 sample and are combined into one:
 
-* value: the mean of the non-empty values, per isotope;
+* value: the mean of the non-empty values, per isotope (and per amino acid,
+  ``d15N_Glu``/``d15N_Phe``, with their ``sd_*`` alike; no ``rep_sd_*`` and
+  no disagreement flag for them);
 * ``sd_*``: the SD of that mean, the larger of the propagated analytical
   SD, sqrt(sum sd_i²)/n, and the empirical standard error s/sqrt(n), so
   that replicates that disagree do not claim more precision than they show;
@@ -52,6 +54,10 @@ CONFLICT_COLUMNS = (
     "d13C",
     "sd_d15N",
     "sd_d13C",
+    "d15N_Glu",
+    "d15N_Phe",
+    "sd_d15N_Glu",
+    "sd_d15N_Phe",
     "position_mm",
     "segment_length_mm",
     "collected",
@@ -65,6 +71,7 @@ CONFLICT_COLUMNS = (
     "mass_kg",
 )
 _MEANED = ("pct_C", "pct_N", "cn_ratio")
+_AMINO = ("d15N_Glu", "d15N_Phe")
 _ERROR_LIMIT = 20
 
 
@@ -185,7 +192,9 @@ def combine_replicates(
 
     sizes = np.bincount(gid)
     multi = sizes[gid] > 1
+    amino = [c for c in _AMINO if c in rows.columns and f"sd_{c}" in rows.columns]
     cols = ["key", "d15N", "d13C", "sd_d15N", "sd_d13C", *_MEANED]
+    cols += [x for c in amino for x in (c, f"sd_{c}")]
     sub = rows[cols].iloc[pos[multi]]
     g = gid[multi]
     at = np.flatnonzero(sizes[out_g] > 1)  # output rows that are combined
@@ -199,7 +208,7 @@ def combine_replicates(
     put("keys", _key_tuples(sub["key"].to_numpy(), g))
     put("n_replicates", pd.Series(sizes[ids], index=ids))
     disagree = pd.Series(False, index=np.unique(g))
-    for iso in ("d15N", "d13C"):
+    for iso in ("d15N", "d13C", *amino):
         v = sub[iso]
         has = v.notna()
         var = (sub[f"sd_{iso}"] ** 2).where(has)
@@ -209,10 +218,12 @@ def combine_replicates(
         prop = np.sqrt(varg.sum()) / count
         first_sd = sub[f"sd_{iso}"].groupby(g).first()
         sd = np.fmax(prop, spread / np.sqrt(count)).where(count > 0, first_sd)
-        limit = 3.0 * np.sqrt(2.0) * np.sqrt(varg.mean())
-        disagree |= (count >= 2) & ((vg.max() - vg.min()) > limit)
         put(iso, vg.mean())
         put(f"sd_{iso}", sd)
+        if iso in _AMINO:
+            continue
+        limit = 3.0 * np.sqrt(2.0) * np.sqrt(varg.mean())
+        disagree |= (count >= 2) & ((vg.max() - vg.min()) > limit)
         put(f"rep_sd_{iso}", spread)
     for c in _MEANED:
         put(c, sub[c].groupby(g).mean())

@@ -34,8 +34,10 @@ from datetime import date as _date
 import numpy as np
 import pandas as pd
 
+from nstress.aminoacids import DEFAULT_AA_SD
 from nstress.errors import InputError
 from nstress.intake.columns import (
+    AMINO_ACIDS,
     CANONICAL,
     DATES,
     FALSE_WORDS,
@@ -54,6 +56,12 @@ SOFT_RANGES = {"d15N": (-5.0, 30.0), "d13C": (-40.0, -5.0)}
 HARD_LIMIT = 100.0
 RATIO_BANDS = {"d13C": (0.0100, 0.0125), "d15N": (0.0033, 0.0041)}
 FRACTION_LIMIT = 0.1
+AA_SOFT_RANGE = (-20.0, 40.0)
+AA_PHE_ONLY = (
+    "amino-acid pair incomplete: d15N_Phe without d15N_Glu "
+    "(no trophic position, Phe still sets the baseline offset)"
+)
+AA_GLU_ONLY = "amino-acid pair incomplete: d15N_Glu without d15N_Phe (Glu not used)"
 
 # column: (lower bound, lower bound allowed?, upper bound or None, what is expected)
 LIMITS: dict[str, tuple[float, bool, float | None, str]] = {
@@ -61,6 +69,8 @@ LIMITS: dict[str, tuple[float, bool, float | None, str]] = {
     "segment_length_mm": (0.0, False, None, "a segment length > 0 mm"),
     "sd_d15N": (0.0, False, None, "an analytical SD > 0 ‰"),
     "sd_d13C": (0.0, False, None, "an analytical SD > 0 ‰"),
+    "sd_d15N_Glu": (0.0, False, None, "an analytical SD > 0 ‰"),
+    "sd_d15N_Phe": (0.0, False, None, "an analytical SD > 0 ‰"),
     "pct_C": (0.0, True, 100.0, "a mass percentage 0-100"),
     "pct_N": (0.0, True, 100.0, "a mass percentage 0-100"),
     "cn_ratio": (0.0, False, None, "an atomic C:N ratio > 0"),
@@ -291,6 +301,7 @@ def check_table(raw: RawTable, tissues: dict[str, Tissue], default_sd: float, ke
                 bad |= x > hi
         err.rows(bad, c, raw_values[c], f"expected {what}")
     _isotope_checks(nums, samp, raw_values, err, marks)
+    _amino_acid_checks(nums, samp, raw_values, err, marks)
 
     dates = {c: _dates(col(c), miss[c], c, raw_values[c], err) for c in DATES}
     today = np.datetime64(_date.today(), "ns")
@@ -323,6 +334,8 @@ def check_table(raw: RawTable, tissues: dict[str, Tissue], default_sd: float, ke
 
     for c in ("sd_d15N", "sd_d13C"):
         nums[c] = np.where(np.isnan(nums[c]), default_sd, nums[c])
+    for c in AMINO_ACIDS:
+        nums[f"sd_{c}"] = np.where(np.isnan(nums[f"sd_{c}"]), DEFAULT_AA_SD, nums[f"sd_{c}"])
     group = _where(text["group"], (text["group"] != "").to_numpy(), "all")
     out = pd.DataFrame(
         {
@@ -495,6 +508,38 @@ def _isotope_checks(
             f"|{c}| > {HARD_LIMIT:g} ‰ is beyond natural abundance; expected a per-mil δ value",
         )
         marks.append(("flag", soft, soft_range_reason(c)))
+
+
+def aa_soft_range_reason(col: str) -> str:
+    """Return the ledger reason for an amino-acid δ15N outside :data:`AA_SOFT_RANGE`."""
+    lo, hi = AA_SOFT_RANGE
+    return f"{col} outside plausible amino-acid range ({lo:g} to {hi:g} ‰)"
+
+
+def _amino_acid_checks(
+    nums: dict[str, np.ndarray],
+    samp: np.ndarray,
+    raw: dict[str, pd.Series],
+    err: _Errors,
+    marks: list[tuple[str, np.ndarray, str]],
+) -> None:
+    """Hard limit and soft range of the amino-acid δ15N columns; incomplete pairs."""
+    for c in AMINO_ACIDS:
+        x = nums[c]
+        with np.errstate(invalid="ignore"):
+            hard = np.abs(x) > HARD_LIMIT
+            lo, hi = AA_SOFT_RANGE
+            soft = samp & ~hard & ((x < lo) | (x > hi))
+        err.rows(
+            hard,
+            c,
+            raw[c],
+            f"|{c}| > {HARD_LIMIT:g} ‰ is beyond natural abundance; expected a per-mil δ value",
+        )
+        marks.append(("flag", soft, aa_soft_range_reason(c)))
+    glu, phe = (np.isfinite(nums[c]) for c in AMINO_ACIDS)
+    marks.append(("note", samp & phe & ~glu, AA_PHE_ONLY))
+    marks.append(("note", samp & glu & ~phe, AA_GLU_ONLY))
 
 
 def _scale_problem(c: str, x: np.ndarray, d13c: np.ndarray) -> str | None:

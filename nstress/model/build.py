@@ -15,7 +15,9 @@ sub-models). Per individual i:
 * body pool P = D + E·(1, γ_g); tissue k sees P through its kernel
   (one-compartment weights for blood, soft growth windows for keratin) plus
   its discrimination Δ_k; keratin growth multiplier r_i is a parameter;
-* observation y ~ Normal(Y, sqrt(sd_row² + σ_k²)).
+* observation y ~ Normal(Y, sqrt(sd_row² + σ_k²)); a row with δ15N_Phe has
+  a known baseline offset in its expected δ15N and the offset's variance in
+  sd_row² (:mod:`nstress.prep.amino`, :func:`nstress.model.forward.with_baseline_offset`).
 
 Pooled quantities are non-centred, except the diet level and the growth
 multipliers, which each animal's samples pin down (centred is better
@@ -139,7 +141,7 @@ def data_centre(tb: TimeBase) -> np.ndarray:
     vals = []
     for o in (tb.blood, tb.keratin):
         if o.mask.any():
-            v = np.where(o.y_mask, o.y - disc[o.tissue], np.nan)
+            v = np.where(o.y_mask, o.y - forward.with_baseline_offset(o, disc[o.tissue]), np.nan)
             vals.append(v.reshape(-1, 2))
     allv = np.concatenate(vals)
     c = np.nanmean(np.where(np.isfinite(allv), allv, np.nan), axis=0)

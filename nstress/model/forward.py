@@ -404,7 +404,9 @@ class Prediction:
     ``blood0``/``keratin0`` are ``(I, N, 2)`` without an episode;
     ``blood_e``/``keratin_e`` are the episode's δ15N contribution (the δ13C
     contribution is γ times it): ``(I, N)`` for one onset per individual, or
-    ``(I, N, M)`` for M candidate onsets. ``blood_s``/``keratin_s`` are
+    ``(I, N, M)`` for M candidate onsets. ``blood0``/``keratin0`` include
+    each row's known δ15N baseline offset from phenylalanine
+    (:func:`with_baseline_offset`). ``blood_s``/``keratin_s`` are
     the response to a unit diet shift (anchored: 0 at the walk's anchor knot),
     ``(I, N)`` or ``(I, N, J)`` for J candidate starts; the shift adds
     Δ·s to each isotope. ``blood0``/``keratin0`` exclude the shift and the
@@ -562,13 +564,27 @@ def predict(tb: TimeBase, grid: Grid, p: Params, xp: ModuleType = np) -> Predict
     return Prediction(
         diet=diet,
         enrich=enrich,
-        blood0=p.disc[b.tissue] + blood_diet,
+        blood0=with_baseline_offset(b, p.disc[b.tissue] + blood_diet),
         blood_e=blood_e,
-        keratin0=p.disc[k.tissue] + diet_k,
+        keratin0=with_baseline_offset(k, p.disc[k.tissue] + diet_k),
         keratin_e=keratin_e,
         blood_s=blood_s,
         keratin_s=keratin_s,
     )
+
+
+def with_baseline_offset(o: Any, y0: Any) -> Any:
+    """Add each observation's known δ15N baseline offset (from phenylalanine) to ``y0``.
+
+    ``y0`` is ``(I, N, 2)`` (or with leading draw axes); the offset
+    (:attr:`nstress.prep.timebase.ObsSet.offset`, ‰) moves δ15N only. An
+    observation set without any offset returns ``y0`` itself, so a table
+    without amino-acid data gives the same graph and the same numbers as
+    before the offset existed.
+    """
+    if not o.has_offset:
+        return y0
+    return y0 + np.stack([o.offset, np.zeros_like(o.offset)], axis=-1)
 
 
 def _np_set(full: np.ndarray, rows: np.ndarray, vals: np.ndarray) -> np.ndarray:

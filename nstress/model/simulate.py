@@ -28,11 +28,31 @@ Kinds of animal
 ``faster+shift``
     an episode and a shift (trophic or habitat, half and half);
 ``neither``
-    neither; the diet only wanders a little.
+    neither; the diet only wanders a little;
+``baseline_shift``
+    no fast and no diet change, but the food web's baseline δ15N rises for a
+    while (a stay in a region of higher baseline δ15N around the breeding
+    date) and falls back: bulk δ15N and phenylalanine rise together, δ13C
+    stays flat. Without amino-acid data it looks like a fast in δ15N; with
+    them, phenylalanine says it was the baseline (share 0 by default).
+
+Amino acids (optional, :attr:`ColonySpec.amino_acid_every`)
+-----------------------------------------------------------
+Every k-th sample of each animal and tissue (in table order: a whisker's
+segments from the root, blood draws by date) gets δ15N of phenylalanine and
+glutamic acid: Phe = the animal's Phe level + PHE_TDF·(TP − 1) + the baseline path
+over the sample's window (the same forward model and kernels as the bulk
+values, :func:`nstress.model.forward.predict`) + noise, and
+Glu = Phe + β + TDF·(TP − 1) + noise (Chikaraishi et al. 2009), with TP the
+animal's trophic position (plus ΔN/3.4 of a trophic shift, Post 2002).
+These draws, and the baseline shifts, come from a second generator seeded
+from the spec's seed, so that switching them on leaves every other value of
+the colony as it was (and the defaults leave every file byte-identical).
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -42,6 +62,7 @@ import numpy as np
 import pandas as pd
 
 from nstress import equations as eq
+from nstress.aminoacids import FOOD_WEBS, PHE_TDF
 from nstress.errors import ConfigError
 from nstress.model.forward import (
     DEFAULT_KNOT_DAYS,
@@ -55,7 +76,7 @@ from nstress.model.forward import (
 from nstress.prep.timebase import DEFAULT_BIN_DAYS, TimeBase, build_timebase
 from nstress.tissues import DEFAULT_TISSUES, Tissue
 
-KINDS = ("faster", "trophic_shift", "habitat_shift", "faster+shift", "neither")
+KINDS = ("faster", "trophic_shift", "habitat_shift", "faster+shift", "neither", "baseline_shift")
 """Kinds of simulated animal, in a fixed order (see the module docstring)."""
 
 DEFAULT_KIND_SHARES: dict[str, float] = {
@@ -88,6 +109,10 @@ SAMPLE_COLUMNS = [
     "pct_N",
     "cn_ratio",
     "lipid_extracted",
+    "d15N_Glu",
+    "d15N_Phe",
+    "sd_d15N_Glu",
+    "sd_d15N_Phe",
 ]
 """Columns of :attr:`Simulation.table`, in order (optional ones only when switched on)."""
 
@@ -211,6 +236,28 @@ class ColonySpec:
     tissues
         Tissue registry (default :data:`nstress.tissues.DEFAULT_TISSUES`):
         discrimination, half-lives, growth and growth SD come from here.
+    amino_acid_every
+        0 (default): no amino-acid columns. k ≥ 1: every k-th sample of each
+        animal and tissue (in table order, the first included) gets
+        ``d15N_Phe`` and ``d15N_Glu`` with their SDs (see the module
+        docstring).
+    amino_acid_sd
+        Analytical SD of the amino-acid values (‰), written to the sd columns
+        and used as their noise.
+    phe_level
+        Mean δ15N of phenylalanine of the primary producers (‰; invented).
+    phe_level_sd
+        Between-animal SD of that level (‰).
+    trophic_position
+        Range of the animals' trophic position (uniform).
+    food_web
+        Food web whose β and TDF make the Glu values (:data:`nstress.aminoacids.FOOD_WEBS`).
+    baseline_shift_d15N
+        Range of the rise of the baseline δ15N of a ``baseline_shift`` animal (‰).
+    baseline_shift_window_days
+        Its start, in days relative to the group's breeding date (uniform).
+    baseline_stay_days
+        How long the baseline stays up before it falls back (uniform, days).
     """
 
     n_individuals: int = 36
@@ -257,6 +304,15 @@ class ColonySpec:
     include_mass: bool = False
     mass_kg_mean: float = 35.0
     tissues: Mapping[str, Tissue] | None = None
+    amino_acid_every: int = 0
+    amino_acid_sd: float = 0.5
+    phe_level: float = 4.0
+    phe_level_sd: float = 0.5
+    trophic_position: tuple[float, float] = (3.0, 4.0)
+    food_web: str = "aquatic"
+    baseline_shift_d15N: tuple[float, float] = (1.5, 2.5)
+    baseline_shift_window_days: tuple[float, float] = (-15.0, 5.0)
+    baseline_stay_days: tuple[float, float] = (30.0, 60.0)
 
     def registry(self) -> dict[str, Tissue]:
         """Return the tissue registry the simulation uses."""
@@ -320,6 +376,20 @@ class ColonySpec:
             raise ConfigError("kappa_per_day must be a range of values >= 0", key="kappa_per_day")
         if self.analytical_sd < 0 or self.extra_sd < 0:
             raise ConfigError("noise SDs must be >= 0", key="analytical_sd")
+        if self.amino_acid_every < 0:
+            raise ConfigError("amino_acid_every must be >= 0", key="amino_acid_every")
+        if not self.amino_acid_sd > 0:
+            raise ConfigError("amino_acid_sd must be > 0 ‰", key="amino_acid_sd")
+        if self.food_web not in FOOD_WEBS:
+            raise ConfigError(
+                f"unknown food web {self.food_web!r}; expected one of {list(FOOD_WEBS)}",
+                key="food_web",
+            )
+        lo, hi = self.baseline_stay_days
+        if not 0 < lo <= hi:
+            raise ConfigError(
+                "baseline_stay_days must be a range of positive days", key="baseline_stay_days"
+            )
 
 
 @dataclass
@@ -678,6 +748,10 @@ def simulate_colony(spec: ColonySpec | None = None) -> Simulation:
     # (4) the same forward model the PyMC model uses, then noise ---------------
     pred = predict(tb, grid, params)
     yb, yk = expected(pred, gamma, shift_size)
+    aa = _amino_acid_truth(spec, tb, grid, params, pred, kind, breed, trophic, shift_dn)
+    if aa is not None:  # the baseline moves bulk δ15N with phenylalanine
+        yb[..., 0] += aa.baseline["blood"]
+        yk[..., 0] += aa.baseline["keratin"]
     sigma = math.hypot(spec.analytical_sd, spec.extra_sd)
     yb = yb + sigma * rng.standard_normal(yb.shape)
     yk = yk + sigma * rng.standard_normal(yk.shape)
@@ -688,6 +762,8 @@ def simulate_colony(spec: ColonySpec | None = None) -> Simulation:
         values = np.round(values, spec.decimals)
 
     table = _finish_table(spec, design, a, values, rng, reg)
+    if aa is not None:
+        table = _amino_acid_columns(spec, table, tb, aa)
     truth_ind = _truth_individuals(
         a,
         tb,
@@ -707,7 +783,98 @@ def simulate_colony(spec: ColonySpec | None = None) -> Simulation:
         margin,
     )
     truth_bins = _truth_bins(tb, pred, has_ep, onset, duration)
+    if aa is not None:
+        truth_ind = truth_ind.assign(
+            trophic_position=np.round(aa.tp, 8),
+            phe_level=np.round(aa.phe_level, 8),
+            baseline_shift_d15N=np.round(aa.rise, 8),
+            baseline_shift_date=_iso(np.where(aa.rise != 0, origin + aa.start, np.nan)),
+            baseline_return_date=_iso(np.where(aa.rise != 0, origin + aa.end, np.nan)),
+        )
     return Simulation(spec, table, truth_ind, truth_bins, params, tb, grid, pred)
+
+
+@dataclass
+class _AminoTruth:
+    """True baseline path and amino-acid values of a simulation (per animal / observation)."""
+
+    rise: np.ndarray
+    start: np.ndarray
+    end: np.ndarray
+    tp: np.ndarray
+    phe_level: np.ndarray
+    baseline: dict[str, np.ndarray]
+    tp_obs: dict[str, np.ndarray]
+    rng: np.random.Generator
+
+
+def _amino_acid_truth(spec, tb, grid, params, pred, kind, breed, trophic, shift_dn):
+    """Draw the baseline shifts and trophic positions (second generator); ``None`` if off.
+
+    The baseline path is B(t) = rise·(ramp(t; start) − ramp(t; end)) on the
+    diet's own time, seen by each observation through the same forward model
+    as the diet (a diet shift of size (rise, 0) through
+    :func:`nstress.model.forward.predict`), un-anchored so that B = 0 before
+    the rise.
+    """
+    is_shift = kind == "baseline_shift"
+    if spec.amino_acid_every == 0 and not is_shift.any():
+        return None
+    rng = np.random.default_rng([spec.seed, 1])
+    n = tb.n_individuals
+    rise = np.where(is_shift, rng.uniform(*spec.baseline_shift_d15N, n), 0.0)
+    start = breed + rng.uniform(*spec.baseline_shift_window_days, n)
+    end = start + rng.uniform(*spec.baseline_stay_days, n)
+    tp = rng.uniform(*spec.trophic_position, n)
+    phe_level = spec.phe_level + spec.phe_level_sd * rng.standard_normal(n)
+    anchor_t = grid.knots[grid.anchor]
+    seen = {"blood": np.zeros(tb.blood.mask.shape), "keratin": np.zeros(tb.keratin.mask.shape)}
+    for t0, sign in ((start, 1.0), (end, -1.0)):
+        one = dataclasses.replace(params, shift_start=t0, shift_size=None)
+        p = predict(tb, grid, one)
+        at_anchor = eq.ramp(anchor_t, t0, grid.spacing)[:, None]
+        seen["blood"] += sign * rise[:, None] * (p.blood_s + at_anchor)
+        seen["keratin"] += sign * rise[:, None] * (p.keratin_s + at_anchor)
+    # trophic position per observation: a trophic shift moves it by ΔN / 3.4 (Post 2002)
+    step = np.where(trophic, shift_dn, 0.0)[:, None] / TROPHIC_STEP_D15N
+    tp_obs = {
+        "blood": tp[:, None] + step * pred.blood_s,
+        "keratin": tp[:, None] + step * pred.keratin_s,
+    }
+    return _AminoTruth(rise, start, end, tp, phe_level, seen, tp_obs, rng)
+
+
+TROPHIC_STEP_D15N = 3.4
+"""Bulk δ15N per trophic level (Post 2002), for the simulated trophic position of a shift."""
+
+
+def _amino_acid_columns(spec, table, tb, aa: _AminoTruth) -> pd.DataFrame:
+    """Write ``d15N_Phe``/``d15N_Glu`` (and SDs) on every k-th sample of each animal and tissue."""
+    n = len(table)
+    if spec.amino_acid_every == 0:
+        return table
+    web = FOOD_WEBS[spec.food_web]
+    rank = table.groupby(["individual", "tissue"], sort=False).cumcount().to_numpy()
+    pick = rank % spec.amino_acid_every == 0
+    base = np.full(n, np.nan)
+    tp = np.full(n, np.nan)
+    level = np.full(n, np.nan)
+    for name, o in (("blood", tb.blood), ("keratin", tb.keratin)):
+        rows = o.sample[o.mask]  # rows of the design, i.e. of the table
+        base[rows] = aa.baseline[name][o.mask]
+        tp[rows] = aa.tp_obs[name][o.mask]
+        level[rows] = np.broadcast_to(aa.phe_level[:, None], o.mask.shape)[o.mask]
+    noise = aa.rng.standard_normal((2, n)) * spec.amino_acid_sd
+    phe = level + PHE_TDF * (tp - 1.0) + base + noise[0]
+    glu = phe - noise[0] + web.beta + web.tdf * (tp - 1.0) + noise[1]
+    if spec.decimals is not None:
+        phe, glu = np.round(phe, spec.decimals), np.round(glu, spec.decimals)
+    t = table.copy()
+    t["d15N_Glu"] = np.where(pick, glu, np.nan)
+    t["d15N_Phe"] = np.where(pick, phe, np.nan)
+    t["sd_d15N_Glu"] = np.where(pick, spec.amino_acid_sd, np.nan)
+    t["sd_d15N_Phe"] = np.where(pick, spec.amino_acid_sd, np.nan)
+    return t
 
 
 def _finish_table(spec, design, a, values, rng, reg) -> pd.DataFrame:

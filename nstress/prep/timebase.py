@@ -25,6 +25,7 @@ import pandas as pd
 
 from nstress.errors import InputError
 from nstress.growth import make_growth
+from nstress.prep.amino import phe_baseline_offsets
 from nstress.tissues import DEFAULT_TISSUES, Tissue
 
 DEFAULT_BIN_DAYS = 4.0
@@ -57,6 +58,11 @@ class ObsSet:
     slot
         Keratin only: ``(I, N)`` index into the individual's keratin tissues
         (the growth multiplier's second axis).
+    offset
+        ``(I, N)`` known baseline offset of the expected δ15N (‰), from the
+        row's δ15N_Phe (:func:`nstress.prep.amino.phe_baseline_offsets`); 0
+        without Phe. ``sd[..., 0]`` then includes the Phe analytical SD in
+        quadrature, so ``sd`` is the observation SD of the row.
     """
 
     mask: np.ndarray
@@ -69,6 +75,12 @@ class ObsSet:
     h_lo: np.ndarray | None = None
     h_hi: np.ndarray | None = None
     slot: np.ndarray | None = None
+    offset: np.ndarray | None = None
+
+    @property
+    def has_offset(self) -> bool:
+        """Whether any observation carries a non-zero baseline offset."""
+        return self.offset is not None and bool(np.any(self.offset != 0.0))
 
     @property
     def n(self) -> int:
@@ -180,6 +192,7 @@ def build_timebase(
     tissues: dict[str, Tissue] | None = None,
     *,
     bin_width: float = DEFAULT_BIN_DAYS,
+    phe_mode: str = "interpolate",
 ) -> TimeBase:
     """Place the prepared samples in time.
 
@@ -192,6 +205,14 @@ def build_timebase(
         Tissue registry (default :data:`nstress.tissues.DEFAULT_TISSUES`).
     bin_width
         Grid bin width Δ (days).
+    phe_mode
+        How δ15N_Phe sets a known offset of each row's expected bulk δ15N
+        (:func:`nstress.prep.amino.phe_baseline_offsets`): ``"interpolate"``
+        (default; rows between two Phe rows of one animal and tissue get the
+        interpolated offset), ``"measured"`` (Phe rows only) or ``"off"``
+        (Phe is ignored here). Rows are placed in time for this by a blood
+        draw's date or a keratin segment's growth-window midpoint at nominal
+        growth.
 
     Returns
     -------
@@ -308,6 +329,8 @@ def build_timebase(
     origin_offset = start - group_start
 
     t_rel = t_event - start[ind_codes]
+    t_mid = np.where(is_ker, t_event - 0.5 * (h_lo + h_hi), t_event)  # nominal growth
+    aa_offset, aa_var = phe_baseline_offsets(df, t_mid=t_mid, mode=phe_mode)
     df["_individual_index"] = ind_codes
     df["_t_days"] = t_rel
 
@@ -328,6 +351,7 @@ def build_timebase(
             y_mask=np.zeros(shape + (2,), bool),
             sd=np.full(shape + (2,), 0.15),
             t=np.zeros(shape),
+            offset=np.zeros(shape),
         )
         o.mask[ii, pos] = True
         o.sample[ii, pos] = order
@@ -336,7 +360,12 @@ def build_timebase(
         sdv = df[["sd_d15N", "sd_d13C"]].to_numpy(float)[order]
         o.y_mask[ii, pos] = ~np.isnan(yv)
         o.y[ii, pos] = np.nan_to_num(yv)
-        o.sd[ii, pos] = np.where(np.isnan(sdv), 0.15, sdv)
+        sdv = np.where(np.isnan(sdv), 0.15, sdv)
+        var = aa_var[order]
+        # only rows with Phe change: elsewhere the SD stays bit for bit the analytical one
+        sdv[:, 0] = np.where(var > 0, np.sqrt(sdv[:, 0] ** 2 + var), sdv[:, 0])
+        o.sd[ii, pos] = sdv
+        o.offset[ii, pos] = aa_offset[order]
         o.t[ii, pos] = t_rel[order]
         if keratin:
             o.h_lo = np.zeros(shape)

@@ -2,8 +2,9 @@
 
 :func:`write_report` reads only files (``manifest.json``, ``screening.csv``,
 ``timelines.csv``, ``predictions.csv``, ``colony_summary.csv``,
-``posterior.nc``), so a report can be rendered again later without
-refitting, and the units of one run merge into one report. Figures go to
+``trophic_position.csv`` when amino-acid data exist, ``posterior.nc``), so
+a report can be rendered again later without refitting, and the units of one
+run merge into one report. Figures go to
 ``out_dir/figures/`` (PNG and SVG); the page embeds the PNGs as base64 and
 needs no network: no external styles, scripts or fonts.
 """
@@ -23,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from nstress import __version__
+from nstress.aminoacids import FOOD_WEBS
 from nstress.atomic import atomic_write_text
 from nstress.errors import InputError
 from nstress.model import posterior as post
@@ -83,6 +85,7 @@ class FitFiles:
     gamma: dict[str, float] = field(default_factory=dict)
     walk_sd: np.ndarray | None = None
     walk_corr: float | None = None
+    trophic: pd.DataFrame | None = None
 
 
 def _read_csv(path: Path, required: bool = True) -> pd.DataFrame | None:
@@ -133,6 +136,7 @@ def read_fit_dir(path: Path, unit: str | None = None) -> FitFiles:
         timelines=timelines,
         predictions=predictions,
         colony=colony,
+        trophic=_read_csv(path / "trophic_position.csv", required=False),
     )
     if (path / "posterior.nc").exists():
         idata, _ = post.load(path / "posterior.nc")
@@ -406,6 +410,65 @@ def _individuals(sc: pd.DataFrame, anchors: dict[str, str], pngs: dict[str, Path
         )
     parts.append("</section>")
     return "".join(parts)
+
+
+PHE_MODE_TEXT = {
+    "interpolate": "samples with Phe, and samples between two of them (interpolated)",
+    "measured": "samples with Phe only",
+    "off": "not used (phe_baseline = false)",
+}
+
+
+def _trophic(fits: list[FitFiles], sc: pd.DataFrame) -> tuple[str, list[str]]:
+    """Trophic position per individual, when amino-acid data exist (and the sources cited)."""
+    with_aa = [f for f in fits if f.trophic is not None and len(f.trophic)]
+    if not with_aa or "trophic_position_median" not in sc:
+        return "", []
+    used = []
+    for f in with_aa:
+        t = f.trophic.iloc[0]
+        aa = f.manifest.get("amino_acids", {})
+        mode = PHE_MODE_TEXT.get(
+            "off" if aa.get("phe_baseline") is False else str(aa.get("phe_mode", "")), ""
+        )
+        used.append(
+            f"<li>unit {_e(f.unit)}: food web <code>{_e(t['food_web'])}</code>, "
+            f"β = {_num(t['beta'])} ± {_num(t['beta_sd'])} ‰, "
+            f"TDF = {_num(t['tdf'])} ± {_num(t['tdf_sd'])} ‰"
+            + (f"; Phe baseline offsets: {_e(mode)}" if mode else "")
+            + "</li>"
+        )
+    rows = sc[sc["n_aa_samples"].fillna(0) > 0]
+    show = pd.DataFrame(
+        {
+            "individual": rows["uid"],
+            "group": rows["group"],
+            "samples with Glu and Phe": rows["n_aa_samples"].astype(int),
+            "samples with Phe": rows["n_phe_samples"].fillna(0).astype(int),
+            "TP median": [_num(v) for v in rows["trophic_position_median"]],
+            "TP mean ± SD": [
+                f"{_num(m)} ± {_num(d)}"
+                for m, d in zip(
+                    rows["trophic_position_mean"], rows["trophic_position_sd"], strict=True
+                )
+            ],
+        }
+    )
+    webs = {str(f.trophic["food_web"].iloc[0]) for f in with_aa}
+    cited = [v for w in webs if w in FOOD_WEBS for v in FOOD_WEBS[w].sources.values()]
+    html_ = (
+        '<section id="trophic"><h2>Trophic position (amino acids)</h2>'
+        "<p>TP = (δ¹⁵N<sub>Glu</sub> − δ¹⁵N<sub>Phe</sub> − β)/TDF + 1 (Chikaraishi et al. "
+        "2009), per sample in <code>trophic_position.csv</code>; the SD propagates the "
+        "analytical SDs and those of β and TDF (delta method; β and TDF errors are shared by "
+        "all samples of an animal). Values used:</p><ul>"
+        + "".join(used)
+        + "</ul><p>Phenylalanine also sets each sample's baseline offset of bulk δ¹⁵N in the "
+        "model, so that a rise of the food web's baseline is not read as catabolism (this "
+        "assumes Phe is not enriched by catabolism). A trophic position describes the "
+        "animal's food; it is not a health statement.</p>" + _table(show, "plain") + "</section>"
+    )
+    return html_, cited
 
 
 def _diagnostics(fits: list[FitFiles], pngs: dict[str, Path]) -> str:
@@ -689,7 +752,7 @@ def _references(texts: list[str]) -> str:
     extra = "".join(f"<li>{_e(x)}</li>" for x in EXTRA_REFERENCES)
     return (
         '<h3 id="references">References</h3><p>As cited by the priors, tissue defaults and '
-        "preset values:</p>"
+        "preset values and amino-acid constants:</p>"
         f"<ul>{items}</ul><p>Methods of this report:</p><ul>{extra}</ul></section>"
     )
 
@@ -865,6 +928,8 @@ def write_report(fit_dirs: list[Path], out_dir: Path, title: str | None = None) 
     title = title or "nstress report — " + ", ".join(f.unit for f in fits)
     methods, texts = _methods(fits)
     starting, preset_texts = _starting_values(fits)
+    trophic, cited = _trophic(fits, sc)
+    texts = texts + cited
     stamp = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
     nav = "".join(
         f'<a href="#{k}">{v}</a>'
@@ -874,6 +939,7 @@ def write_report(fit_dirs: list[Path], out_dir: Path, title: str | None = None) 
             ("colony", "Colony"),
             ("screening", "Screening"),
             ("individuals", "Individuals"),
+            *((("trophic", "Trophic position"),) if trophic else ()),
             ("diagnostics", "Diagnostics"),
             ("power", "Design power"),
             ("starting-values", "Starting values"),
@@ -895,6 +961,7 @@ def write_report(fit_dirs: list[Path], out_dir: Path, title: str | None = None) 
         + _colony(fits, pngs)
         + _screening_table(sc, anchors, len(fits) > 1)
         + _individuals(sc, anchors, pngs)
+        + trophic
         + _diagnostics(fits, pngs)
         + _power(out_dir)
         + starting

@@ -457,6 +457,15 @@ def _fit_arguments(p: argparse.ArgumentParser) -> None:
         help="approximate posterior draws of --fast (default: 200)",
     )
     _study_arguments(p)
+    from nstress.aminoacids import DEFAULT_FOOD_WEB, FOOD_WEBS
+
+    p.add_argument(
+        "--food-web",
+        choices=list(FOOD_WEBS),
+        default=None,
+        help="food web whose β and TDF give the trophic position from d15N_Glu and d15N_Phe "
+        f"(default: {DEFAULT_FOOD_WEB}; only used when the table has amino-acid columns)",
+    )
     _model_arguments(p)
 
 
@@ -514,6 +523,7 @@ def _run_fit(args: argparse.Namespace) -> int:
             **({"method": "fast", "fast_draws": args.fast_draws} if args.fast else {}),
         },
         progress=not args.quiet,
+        trophic={"food_web": args.food_web} if args.food_web else {},
     )
     if args.fast and args.fast_draws < 1:
         raise NstressError("--fast-draws must be at least 1")

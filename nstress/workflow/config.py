@@ -67,6 +67,15 @@ Settings that change results (they are hashed; a change refits):
 ``[diagnostics]``
     Pass marks: ``rhat_max``, ``ess_bulk_min``, ``ess_tail_min``,
     ``divergences_max``, ``ppc_coverage_min``.
+``[trophic]``
+    Amino-acid settings (:mod:`nstress.aminoacids`): ``food_web``
+    (``"aquatic"``, default, ``"terrestrial_c3"``, ``"terrestrial_c4"``)
+    selects β and TDF of the trophic position; ``beta``, ``beta_sd``,
+    ``tdf`` (> 0), ``tdf_sd`` (‰) override them; ``phe_baseline`` (default
+    true) lets δ15N_Phe set each sample's baseline offset in the model;
+    ``phe_mode`` (``"interpolate"``, default: a sample without Phe between
+    two with Phe of the same animal and tissue gets the interpolated offset;
+    ``"measured"``: only samples with Phe get one).
 
 The power analysis (``nstress power``; not part of a fit, so not hashed):
 
@@ -300,6 +309,7 @@ GROWTH_FIELDS = {  # [growth.NAME] key -> Tissue field
 
 def _schema() -> dict[str, dict[str, Setting]]:
     """Fixed-key sections (``tissues``, ``growth``, ``priors`` have named sub-tables)."""
+    from nstress.aminoacids import FOOD_WEBS, PHE_MODES
     from nstress.model.diagnose import Thresholds
     from nstress.model.fit import BACKENDS, METHODS, SAMPLERS
     from nstress.prep import DEFAULT_CONFIG
@@ -342,6 +352,15 @@ def _schema() -> dict[str, dict[str, Setting]]:
             "seed": Setting("int", low=0),
             "for_data": FLAG,
         },
+        "trophic": {
+            "food_web": Setting("text", choices=tuple(FOOD_WEBS)),
+            "beta": NUMBER,
+            "beta_sd": NONNEG,
+            "tdf": POSITIVE,
+            "tdf_sd": NONNEG,
+            "phe_baseline": FLAG,
+            "phe_mode": Setting("text", choices=PHE_MODES),
+        },
         "outputs": {"run_dir": TEXT, "unit_reports": FLAG},
         "execution": {
             "workers": Setting("int", low=0),
@@ -367,6 +386,7 @@ SECTIONS = (
     "screening",
     "diagnostics",
     "design",
+    "trophic",
     "outputs",
     "execution",
 )
@@ -575,6 +595,7 @@ def validate(
         },
         screening=study["screening"],
         diagnostics=study["diagnostics"],
+        trophic=doc.get("trophic", {}),
         product_draws=sampler.get("product_draws", FitConfig.product_draws),
         progress=False,
         report=bool(doc.get("outputs", {}).get("unit_reports", False)),
@@ -716,6 +737,7 @@ def _tissues(tissues: dict[str, Any], growth: dict[str, Any], file: str | None) 
 
 def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str | None) -> None:
     """Run the lower layers' own checks of priors, QC and screening settings."""
+    from nstress.aminoacids import resolve_trophic
     from nstress.model.priors import resolve_priors
     from nstress.prep import resolve_config
     from nstress.products.screening import ScreeningRules
@@ -725,6 +747,7 @@ def _delegate(doc: dict[str, Any], tissues: dict[str, Any], file: str | None) ->
         ("", lambda: resolve_priors(doc.get("priors"))),
         ("qc.", lambda: resolve_config(doc.get("qc"), resolve_tissues(tissues))),
         ("", lambda: ScreeningRules.from_config(doc.get("screening"))),
+        ("trophic.", lambda: resolve_trophic(doc.get("trophic"))),
     ]
     for prefix, check in checks:
         try:

@@ -72,6 +72,10 @@ class FitConfig:
         ``tissues`` and ``qc``. The name and the values are hashed with the
         result settings (:meth:`result_config`); the whole record goes into
         ``manifest.json`` and the report.
+    trophic
+        Amino-acid settings (:func:`nstress.aminoacids.resolve_trophic`):
+        ``food_web``, overrides of ``beta``, ``beta_sd``, ``tdf``, ``tdf_sd``
+        ``phe_baseline`` and ``phe_mode``; they change results.
     """
 
     bin_days: float = 4.0
@@ -89,6 +93,7 @@ class FitConfig:
     report: bool = True
     model: dict[str, Any] = field(default_factory=dict)
     preset: dict[str, Any] | None = None
+    trophic: dict[str, Any] = field(default_factory=dict)
 
     def result_config(self) -> dict[str, Any]:
         """Return the settings that change results, as plain data (hashed for caching)."""
@@ -105,6 +110,8 @@ class FitConfig:
             d.pop("preset")
         else:  # its name and values, not its prose
             d["preset"] = {"name": d["preset"]["name"], "values": d["preset"]["values"]}
+        if not d["trophic"]:  # hashes of fits without amino-acid settings stay as they were
+            d.pop("trophic")
         d["sampler"] = {k: v for k, v in d["sampler"].items() if k not in EXECUTION_ONLY}
         return d
 
@@ -207,6 +214,9 @@ def fit_tables(
     FitError
         The sampler failed (nothing but the ledger is written).
     """
+    import numpy as np
+
+    from nstress.aminoacids import resolve_trophic
     from nstress.intake import read_samples
     from nstress.model import posterior as post
     from nstress.model.build import build_model
@@ -221,6 +231,14 @@ def fit_tables(
     from nstress.products.report import write_report
     from nstress.products.screening import ScreeningRules, colony_summary, screening_table
     from nstress.products.timelines import compute_products
+    from nstress.products.trophic import (
+        SCREENING_UNITS,
+        TROPHIC_UNITS,
+        add_screening_columns,
+        has_amino_acids,
+        trophic_positions,
+        trophic_summary,
+    )
     from nstress.tissues import resolve_tissues
     from nstress.workflow.cli import write_csv
 
@@ -235,6 +253,7 @@ def fit_tables(
     settings = SamplerSettings(**{**cfg.sampler, "progress": cfg.progress, "cores": cfg.cores})
     rules = ScreeningRules.from_config(cfg.screening)
     thresholds = Thresholds(**cfg.diagnostics)
+    trophic = resolve_trophic(cfg.trophic)
     say(f"reading {len(tables)} table(s)")
     intake = read_samples([str(t) for t in tables], tissues=tissues)
     prepared = prepare(intake, tissues=tissues, config=cfg.qc or None)
@@ -243,7 +262,7 @@ def fit_tables(
     used = used[~used["key"].isin(excluded)]
     if cfg.group is not None:
         used = _only_group(used, prepared, cfg.group)
-    tb = build_timebase(used, tissues, bin_width=cfg.bin_days)
+    tb = build_timebase(used, tissues, bin_width=cfg.bin_days, phe_mode=trophic.baseline_mode)
     timings["intake_prep_s"] = time.perf_counter() - t_start
     say(f"{tb.n_individuals} individuals, {len(used)} samples, tissues {', '.join(tb.tissues)}")
     t0 = time.perf_counter()
@@ -294,6 +313,12 @@ def fit_tables(
     screen = screening_table(prods.episodes, tb, diag, rules, approximate=fast)
     summary = colony_summary(screen, draws.episode, tb.groups, tb.group_index)
     preds = observation_predictions(built, draws, seed=seed, reps=reps)
+    amino = has_amino_acids(tb)
+    tp_rows = None
+    if amino:
+        growth = np.median(draws.params["growth"], axis=0)
+        tp_rows = trophic_positions(tb, trophic, growth=growth)
+        screen = add_screening_columns(screen, trophic_summary(tp_rows, tb, trophic))
     timings["products_s"] = time.perf_counter() - t0
     prods.dataset.attrs.update(
         {"diagnostics_ok": int(diag.ok), "nstress_version": __version__, "input_hash": digest}
@@ -320,6 +345,13 @@ def fit_tables(
     atomic_write(
         out / "predictions.csv", lambda p: preds.to_csv(p, index=False, float_format="%.5g")
     )
+    if tp_rows is not None and len(tp_rows):
+        atomic_write(
+            out / "trophic_position.csv",
+            lambda p: tp_rows.to_csv(p, index=False, float_format="%.5g"),
+        )
+    else:  # a file left by an earlier fit of other input
+        (out / "trophic_position.csv").unlink(missing_ok=True)
     atomic_write(
         out / "timelines_long.csv",
         lambda p: tidy_timelines(tl).to_csv(p, index=False, float_format="%.5g"),
@@ -362,6 +394,21 @@ def fit_tables(
         },
         "prep_report": prepared.report,
         "preset": cfg.preset,
+        **(
+            {
+                "amino_acids": {
+                    **trophic.to_dict(),
+                    "samples_with_pair": int(len(tp_rows)),
+                    "samples_with_phe": int(screen["n_phe_samples"].sum()),
+                    "column_units": {
+                        "trophic_position.csv": TROPHIC_UNITS,
+                        "screening.csv": SCREENING_UNITS,
+                    },
+                }
+            }
+            if amino
+            else {}
+        ),
         "files": sorted(p.name for p in out.iterdir() if not p.name.startswith(".")),
     }
     atomic_write_text(out / FINISHED_MARK, json.dumps(manifest, indent=2, default=str))

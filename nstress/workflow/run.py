@@ -7,6 +7,7 @@ A run directory looks like::
       ledger.csv           every input row (the whole input, read once)
       screening.csv        the units' screening tables, with a ``unit`` column
       timelines.csv        the units' timelines, with a ``unit`` column
+      trophic_position.csv the units' amino-acid trophic positions (when any unit has them)
       report.html, figures/  one merged report
       manifest.json        written last: inputs, configuration, seeds, units
 
@@ -59,6 +60,8 @@ THREAD_VARS = (
 )
 XLA_ONE_THREAD = "--xla_cpu_multi_thread_eigen=false intra_op_parallelism_threads=1"
 MERGED = ("screening.csv", "timelines.csv")
+MERGED_OPTIONAL = ("trophic_position.csv",)
+"""Merged when a unit wrote them (amino-acid data)."""
 LOCK_FILE = ".nstress-run.lock"
 WORKER_DIED = "the worker process died while fitting this unit"
 
@@ -913,12 +916,13 @@ def _write_merged(
     from nstress.workflow.cli import write_csv
 
     atomic_write(run_dir / "ledger.csv", lambda p: write_csv(inspection.ledger.to_frame(), p))
-    for name in MERGED:
+    for name in MERGED + MERGED_OPTIONAL:
         frames = []
         for u in finished:
-            f = pd.read_csv(
-                run_dir / UNITS_DIR / u.dirname / name, dtype={"individual": str, "group": str}
-            )
+            src = run_dir / UNITS_DIR / u.dirname / name
+            if name in MERGED_OPTIONAL and not src.exists():
+                continue
+            f = pd.read_csv(src, dtype={"individual": str, "group": str})
             diag = (entries or {}).get(u.name, {}).get("diagnostics", {})
             if name == "screening.csv" and diag.get("ok") is False and "status" in f:
                 why = "; ".join(map(str, diag.get("reasons", [])[:3])) or "see the unit's report"
