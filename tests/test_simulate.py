@@ -5,6 +5,7 @@ from __future__ import annotations
 import dataclasses
 import re
 import time
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -399,3 +400,21 @@ def test_large_colony_is_fast():
     elapsed = time.perf_counter() - start
     assert s.truth_individuals.shape[0] == 500
     assert elapsed < 20.0  # vectorised: about 1 s on a laptop core (common practice bound)
+
+
+def test_demo_data_are_what_make_demo_writes_today(tmp_path):
+    """The committed demo files are the current simulator's output (so they follow the
+    model's current equations): ``demo_data/make_demo.py`` rewrites them byte for byte."""
+    import importlib.util
+
+    root = Path(__file__).resolve().parents[1] / "demo_data"
+    spec = importlib.util.spec_from_file_location("make_demo", root / "make_demo.py")
+    make_demo = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(make_demo)
+    written = make_demo.main(tmp_path)
+    assert len(written) == 6
+    for path in written.values():
+        committed = root / path.relative_to(tmp_path)
+        assert path.read_bytes() == committed.read_bytes(), (
+            f"{committed} is stale: rerun make_demo.py"
+        )
