@@ -48,6 +48,7 @@ from nstress.products.trophic import (
     trophic_summary,
 )
 from nstress.workflow.config import load_workflow
+from nstress.workflow.pipeline import PHE_FAST_NOTE
 
 AA = ["d15N_Glu", "d15N_Phe", "sd_d15N_Glu", "sd_d15N_Phe"]
 ONE_GROUP = dict(groups=("g",), breeding_dates=("2024-11-28",), diet_means=((12.0, -17.0),))
@@ -595,6 +596,13 @@ def test_report_has_the_trophic_section_only_with_amino_acid_data(tmp_path):
     assert "interpolated" in html  # the Phe mode used
     assert "Chikaraishi et al. 2009" in html
     assert "not a health statement" in html
+    assert "not calibrated" not in html
+    # a fast-mode fit with Phe offsets carries its warning into the report
+    m = json.loads((aa / "manifest.json").read_text())
+    m["amino_acids"]["fast_mode_note"] = PHE_FAST_NOTE
+    (aa / "manifest.json").write_text(json.dumps(m))
+    html = write_report([aa], tmp_path / "r3").read_text()
+    assert "not calibrated with phenylalanine baseline offsets" in html
 
 
 # --------------------------------------------------------------------------
@@ -648,5 +656,7 @@ def test_phe_lowers_p_episode_of_baseline_shifts_in_fast_mode(tmp_path):
     assert list(tp.columns) == TROPHIC_COLUMNS and len(tp) > 0
     m = json.loads((tmp_path / "with" / "manifest.json").read_text())
     assert m["amino_acids"]["phe_mode"] == "interpolate"
+    # the fast mode is not calibrated with Phe offsets, and the fit says so
+    assert "not calibrated" in m["amino_acids"]["fast_mode_note"]
     assert m["amino_acids"]["column_units"]["trophic_position.csv"] == TROPHIC_UNITS
     assert not (tmp_path / "without" / "trophic_position.csv").exists()

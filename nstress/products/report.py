@@ -436,6 +436,7 @@ def _trophic(fits: list[FitFiles], sc: pd.DataFrame) -> tuple[str, list[str]]:
             f"β = {_num(t['beta'])} ± {_num(t['beta_sd'])} ‰, "
             f"TDF = {_num(t['tdf'])} ± {_num(t['tdf_sd'])} ‰"
             + (f"; Phe baseline offsets: {_e(mode)}" if mode else "")
+            + (f"; <strong>{_e(aa['fast_mode_note'])}</strong>" if aa.get("fast_mode_note") else "")
             + "</li>"
         )
     rows = sc[sc["n_aa_samples"].fillna(0) > 0]

@@ -25,6 +25,14 @@ from nstress.errors import FitError, InputError
 FINISHED_MARK = "manifest.json"
 
 
+PHE_FAST_NOTE = (
+    "the fast screening mode is not calibrated with phenylalanine baseline offsets (on a "
+    "synthetic colony it gave fasters and baseline shifts alike about 0.3): refit with full "
+    "NUTS before reading P(episode)"
+)
+"""Said (log and manifest) when a fast-mode fit uses Phe baseline offsets."""
+
+
 @dataclass
 class FitConfig:
     """Settings of one fit. ``result`` settings change results; ``cores``/``progress`` do not.
@@ -319,6 +327,11 @@ def fit_tables(
         growth = np.median(draws.params["growth"], axis=0)
         tp_rows = trophic_positions(tb, trophic, growth=growth)
         screen = add_screening_columns(screen, trophic_summary(tp_rows, tb, trophic))
+    phe_fast = bool(
+        fast and amino and trophic.baseline_mode != "off" and screen["n_phe_samples"].sum()
+    )
+    if phe_fast:
+        say(f"warning: {PHE_FAST_NOTE}")
     timings["products_s"] = time.perf_counter() - t0
     prods.dataset.attrs.update(
         {"diagnostics_ok": int(diag.ok), "nstress_version": __version__, "input_hash": digest}
@@ -400,6 +413,7 @@ def fit_tables(
                     **trophic.to_dict(),
                     "samples_with_pair": int(len(tp_rows)),
                     "samples_with_phe": int(screen["n_phe_samples"].sum()),
+                    **({"fast_mode_note": PHE_FAST_NOTE} if phe_fast else {}),
                     "column_units": {
                         "trophic_position.csv": TROPHIC_UNITS,
                         "screening.csv": SCREENING_UNITS,
