@@ -19,6 +19,7 @@ import pytest
 
 from nstress.errors import ConfigError
 from nstress.products.report import write_report
+from nstress.products.screening import wilson_interval
 from nstress.tissues import resolve_tissues
 from nstress.workflow.cli import main
 from nstress.workflow.config import load_workflow
@@ -32,37 +33,10 @@ from nstress.workflow.power import (
     run_power,
     score_design,
     simulate_design,
-    wilson_interval,
     write_power,
 )
 
 ROOT = Path(__file__).resolve().parents[1]
-
-
-# ------------------------------------------------------------ Wilson interval
-
-
-def test_wilson_interval_matches_statsmodels():
-    # Wilson 1927 score interval, as implemented independently by statsmodels
-    # (proportion_confint, method="wilson")
-    from statsmodels.stats.proportion import proportion_confint
-
-    k = np.array([0, 1, 3, 5, 6, 17])
-    n = np.array([6, 6, 6, 6, 6, 40])
-    lo, hi = wilson_interval(k, n)
-    ref_lo, ref_hi = proportion_confint(k, n, alpha=0.10, method="wilson")
-    np.testing.assert_allclose(lo, ref_lo, atol=1e-12)
-    np.testing.assert_allclose(hi, ref_hi, atol=1e-12)
-
-
-def test_wilson_interval_closed_forms_at_the_edges():
-    # Wilson 1927: with k = 0 the interval is [0, z²/(n + z²)], with k = n it
-    # is [n/(n + z²), 1]
-    z = 1.6448536269514722
-    lo, hi = wilson_interval(0, 5)
-    assert lo == 0 and hi == pytest.approx(z * z / (5 + z * z))
-    lo, hi = wilson_interval(5, 5)
-    assert hi == 1 and lo == pytest.approx(5 / (5 + z * z))
 
 
 # ------------------------------------------------------------ scoring

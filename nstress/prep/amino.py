@@ -55,12 +55,12 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from nstress.aminoacids import DEFAULT_AA_SD
+from nstress.aminoacids import DEFAULT_AA_SD, PHE_MODES
 from nstress.errors import ConfigError
 
 PHE = "d15N_Phe"
 SD_PHE = "sd_d15N_Phe"
-MODES = ("interpolate", "measured", "off")
+MODES = (*PHE_MODES, "off")
 """Ways Phe sets the baseline offsets (see the module docstring)."""
 
 

@@ -752,7 +752,7 @@ def _references(texts: list[str]) -> str:
     items = "".join(f"<li>{_e(x)}</li>" for x in found)
     extra = "".join(f"<li>{_e(x)}</li>" for x in EXTRA_REFERENCES)
     return (
-        '<h3 id="references">References</h3><p>As cited by the priors, tissue defaults and '
+        '<h3 id="references">References</h3><p>As cited by the priors, tissue defaults, '
         "preset values and amino-acid constants:</p>"
         f"<ul>{items}</ul><p>Methods of this report:</p><ul>{extra}</ul></section>"
     )
@@ -930,7 +930,6 @@ def write_report(fit_dirs: list[Path], out_dir: Path, title: str | None = None) 
     methods, texts = _methods(fits)
     starting, preset_texts = _starting_values(fits)
     trophic, cited = _trophic(fits, sc)
-    texts = texts + cited
     stamp = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
     nav = "".join(
         f'<a href="#{k}">{v}</a>'
@@ -967,7 +966,7 @@ def write_report(fit_dirs: list[Path], out_dir: Path, title: str | None = None) 
         + _power(out_dir)
         + starting
         + methods
-        + _references(texts + preset_texts)
+        + _references(texts + cited + preset_texts)
         + _provenance(fits)
         + f"<script>{_JS}</script></body></html>"
     )

@@ -281,9 +281,12 @@ def fit_tables(
 
     # ---- fit ------------------------------------------------------------
     fast = resolve_method(settings.method) == "fast"
+    phe_fast = fast and _uses_phe_offsets(tb)
     try:
         if fast:
             say(f"{APPROXIMATE_NOTE}; {settings.fast_draws} draws")
+            if phe_fast:
+                say(f"warning: {PHE_FAST_NOTE}")
             fit = fast_fit(
                 built,
                 FastSettings(
@@ -327,11 +330,6 @@ def fit_tables(
         growth = np.median(draws.params["growth"], axis=0)
         tp_rows = trophic_positions(tb, trophic, growth=growth)
         screen = add_screening_columns(screen, trophic_summary(tp_rows, tb, trophic))
-    phe_fast = bool(
-        fast and amino and trophic.baseline_mode != "off" and screen["n_phe_samples"].sum()
-    )
-    if phe_fast:
-        say(f"warning: {PHE_FAST_NOTE}")
     timings["products_s"] = time.perf_counter() - t0
     prods.dataset.attrs.update(
         {"diagnostics_ok": int(diag.ok), "nstress_version": __version__, "input_hash": digest}
@@ -447,6 +445,13 @@ def fit_tables(
 def _fast_backend(settings: Any) -> str:
     """PyTensor mode of the fast fit from nutpie's backend setting (``auto``/``jax`` -> JAX)."""
     return {"jax": "JAX", "numba": "NUMBA"}.get(settings.backend, "auto")
+
+
+def _uses_phe_offsets(tb: Any) -> bool:
+    """Whether any row of the time base has a phenylalanine baseline offset."""
+    import numpy as np
+
+    return any(np.any(obs.offset) for obs in (tb.blood, tb.keratin) if obs.offset is not None)
 
 
 def _only_group(used: Any, prepared: Any, group: str) -> Any:

@@ -46,14 +46,13 @@ import pandas as pd
 
 from nstress.atomic import atomic_write, atomic_write_text
 from nstress.errors import ConfigError
+from nstress.products.screening import wilson_interval
 from nstress.workflow.pipeline import FitConfig
 
 FLAG_STATUS = "catabolic"
 """The screening status that counts as a detection (P(episode) >= the ``flag`` threshold)."""
 SPREAD = 0.10
 """Fast length and rate of a scenario's animals vary by ± this share."""
-WILSON_Z90 = 1.6448536269514722
-"""Normal quantile of a two-sided 90 % interval."""
 
 
 @dataclass(frozen=True)
@@ -160,28 +159,6 @@ class PowerResult:
     limits: pd.DataFrame
     design: PowerDesign
     info: dict[str, Any] = field(default_factory=dict)
-
-
-def wilson_interval(k: np.ndarray, n: np.ndarray, z: float = WILSON_Z90) -> tuple[Any, Any]:
-    """Wilson score interval of a binomial share ``k / n`` (Wilson 1927).
-
-    Parameters
-    ----------
-    k, n
-        Successes and trials (arrays or numbers; ``n`` > 0).
-    z
-        Normal quantile (default: two-sided 90 %).
-
-    Returns
-    -------
-    tuple
-        Lower and upper bounds.
-    """
-    k, n = np.asarray(k, float), np.asarray(n, float)
-    p = k / n
-    centre = (p + z * z / (2 * n)) / (1 + z * z / n)
-    half = z / (1 + z * z / n) * np.sqrt(p * (1 - p) / n + z * z / (4 * n * n))
-    return np.clip(centre - half, 0, 1), np.clip(centre + half, 0, 1)
 
 
 def _cell_seed(seed: int, *values: float) -> int:
