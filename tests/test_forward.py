@@ -460,7 +460,7 @@ def test_shift_candidates_reach_past_both_ends_of_the_samples(sim):
 
 
 def test_without_the_clock_the_diet_runs_on_time(sim):
-    # ModelSpec(diet_clock=False), the default: every animal's clock is time itself, so the
+    # ModelSpec(diet_clock=False) (the default is True): every animal's clock is time itself, so the
     # diet on the bins is the knots' interpolation at the bin centres whatever the growth
     s, tb, _ = sim
     grid = make_grid(tb, knot_days=s.spec.knot_days)

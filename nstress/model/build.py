@@ -86,8 +86,9 @@ class ModelSpec:
     diet_clock
         Run the diet on each animal's clock pivoted at its keratin
         collection date (:func:`nstress.model.forward.diet_clock`), so that
-        growth does not trade against the diet walk. Off by default until the
-        recovery benchmark has measured it; off, the clock is time itself.
+        growth does not trade against the diet walk. On by default (the
+        36-animal recovery, seed 101: 90 % coverage of enriched bins 0.88 and
+        0.91 with it, 0.78 on absolute time); off, the clock is time itself.
     """
 
     knot_days: float = forward.DEFAULT_KNOT_DAYS
@@ -100,7 +101,7 @@ class ModelSpec:
     walk_scale_per_animal: bool = False
     episodes: bool = True
     diet_shift: bool = True
-    diet_clock: bool = False
+    diet_clock: bool = True
 
 
 @dataclass
