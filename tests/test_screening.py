@@ -4,7 +4,12 @@ import pytest
 from nstress.errors import ConfigError
 from nstress.model.priors import resolve_priors
 from nstress.products.recovery import auc
-from nstress.products.screening import STATUSES, ScreeningRules, assign_status
+from nstress.products.screening import (
+    STATUSES,
+    ScreeningRules,
+    assign_status,
+    wilson_interval,
+)
 
 
 def test_every_status_is_reachable():
@@ -97,8 +102,6 @@ def test_rules_from_config_check_keys_and_values():
 
 
 def test_wilson_interval_matches_published_values():
-    from nstress.products.screening import wilson_interval
-
     # Newcombe 1998 (Stat Med 17:857), Table II, method 3 (score, no continuity correction),
     # 95 % limits (from memory; the closed form of Wilson 1927 gives the same four places)
     cases = [
@@ -118,7 +121,7 @@ def test_wilson_interval_matches_published_values():
 def test_colony_summary_counts_shares_and_onsets():
     import pandas as pd
 
-    from nstress.products.screening import colony_summary, wilson_interval
+    from nstress.products.screening import colony_summary
 
     sc = pd.DataFrame(
         {
@@ -150,8 +153,6 @@ def test_wilson_interval_matches_statsmodels():
     # (proportion_confint, method="wilson")
     from statsmodels.stats.proportion import proportion_confint
 
-    from nstress.products.screening import wilson_interval
-
     k = np.array([0, 1, 3, 5, 6, 17])
     n = np.array([6, 6, 6, 6, 6, 40])
     lo, hi = wilson_interval(k, n)
@@ -161,8 +162,6 @@ def test_wilson_interval_matches_statsmodels():
 
 
 def test_wilson_interval_closed_forms_at_the_edges():
-    from nstress.products.screening import wilson_interval
-
     # Wilson 1927: with k = 0 the interval is [0, z²/(n + z²)], with k = n it
     # is [n/(n + z²), 1]
     z = 1.6448536269514722

@@ -281,7 +281,7 @@ def fit_tables(
 
     # ---- fit ------------------------------------------------------------
     fast = resolve_method(settings.method) == "fast"
-    phe_fast = fast and _uses_phe_offsets(tb)
+    phe_fast = fast and (tb.blood.has_offset or tb.keratin.has_offset)
     try:
         if fast:
             say(f"{APPROXIMATE_NOTE}; {settings.fast_draws} draws")
@@ -445,13 +445,6 @@ def fit_tables(
 def _fast_backend(settings: Any) -> str:
     """PyTensor mode of the fast fit from nutpie's backend setting (``auto``/``jax`` -> JAX)."""
     return {"jax": "JAX", "numba": "NUMBA"}.get(settings.backend, "auto")
-
-
-def _uses_phe_offsets(tb: Any) -> bool:
-    """Whether any row of the time base has a phenylalanine baseline offset."""
-    import numpy as np
-
-    return any(np.any(obs.offset) for obs in (tb.blood, tb.keratin) if obs.offset is not None)
 
 
 def _only_group(used: Any, prepared: Any, group: str) -> Any:
